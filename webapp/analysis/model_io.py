@@ -1,0 +1,233 @@
+"""Saved reference models: a versioned JSON schema, and scoring of new samples.
+
+A model file holds everything needed to score new samples the same way the
+reference samples were scored, and nothing about the reference samples
+themselves beyond counts (so a model can be shared without the raw data).
+The schema is documented in docs/model-format.md; ``schema`` and
+``schema_version`` identify it, and readers refuse versions they do not know.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from webapp.analysis import ENGINE_VERSION
+from webapp.analysis.diagnostics import hotelling_t2, q_limit, q_limit_box, t2_limit
+from webapp.analysis.errors import OrdinateError
+from webapp.analysis.pipeline import Analysis, residual_moments
+from webapp.analysis.recipe import Preprocessor, Recipe
+
+SCHEMA = "ordinate-pca-model"
+SCHEMA_VERSION = 1
+
+
+@dataclass(frozen=True, eq=False)
+class ReferenceModel:
+    recipe: Recipe
+    preprocessor: Preprocessor
+    loadings: np.ndarray  # p x K
+    eigenvalues: np.ndarray  # K leading eigenvalues
+    n_samples: int
+    total_variance: float
+    residual_theta: tuple[float, float]
+    residual_eigenvalues: np.ndarray | None  # all eigenvalues beyond K, when known
+    confidence: float
+    q_limit: float
+    q_limit_method: str
+    engine_version: str
+
+    @property
+    def components(self) -> int:
+        return self.loadings.shape[1]
+
+    @property
+    def variables(self) -> tuple[str, ...]:
+        return self.preprocessor.variables
+
+
+@dataclass(frozen=True, eq=False)
+class Projection:
+    """New samples scored against a reference model."""
+
+    sample_labels: tuple[str, ...]
+    scores: np.ndarray
+    t2: np.ndarray
+    q: np.ndarray
+    t2_limit: float
+    q_limit: float
+    filled_cells: int
+    extra_columns: tuple[str, ...]
+    warnings: tuple[str, ...]
+
+
+def model_from_analysis(analysis: Analysis) -> ReferenceModel:
+    fitted, diag = analysis.fitted, analysis.diagnostics
+    pca, k = fitted.pca, diag.components
+    return ReferenceModel(
+        recipe=fitted.recipe,
+        preprocessor=fitted.prepared.preprocessor,
+        loadings=np.array(pca.loadings[:, :k]),
+        eigenvalues=np.array(pca.eigenvalues[:k]),
+        n_samples=pca.n_samples,
+        total_variance=pca.total_variance,
+        residual_theta=residual_moments(pca, k),
+        residual_eigenvalues=np.array(pca.eigenvalues[k:]) if pca.complete_spectrum else None,
+        confidence=diag.confidence,
+        q_limit=diag.q_limit,
+        q_limit_method=diag.q_limit_method,
+        engine_version=ENGINE_VERSION,
+    )
+
+
+def model_to_dict(model: ReferenceModel) -> dict:
+    pre = model.preprocessor
+    return {
+        "schema": SCHEMA,
+        "schema_version": SCHEMA_VERSION,
+        "engine_version": model.engine_version,
+        "recipe": model.recipe.to_dict(),
+        "variables": list(pre.variables),
+        "transforms": list(pre.transforms),
+        "centre": [float(v) for v in pre.centre],
+        "scale": [float(v) for v in pre.scale],
+        "components": model.components,
+        "loadings": [[float(v) for v in row] for row in model.loadings],
+        "eigenvalues": [float(v) for v in model.eigenvalues],
+        "n_samples": model.n_samples,
+        "total_variance": float(model.total_variance),
+        "residual_theta": [float(v) for v in model.residual_theta],
+        "residual_eigenvalues": (
+            None if model.residual_eigenvalues is None else [float(v) for v in model.residual_eigenvalues]
+        ),
+        "confidence": model.confidence,
+        "q_limit": float(model.q_limit),
+        "q_limit_method": model.q_limit_method,
+    }
+
+
+def save_model(model: ReferenceModel, path: str | Path) -> None:
+    Path(path).write_text(json.dumps(model_to_dict(model), indent=1), encoding="utf-8")
+
+
+def load_model(path: str | Path) -> ReferenceModel:
+    try:
+        data = json.loads(Path(path).read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise OrdinateError(f"The model file '{path}' does not exist.") from None
+    except (UnicodeDecodeError, json.JSONDecodeError) as error:
+        raise OrdinateError(f"The model file '{path}' is not valid JSON ({error}).") from error
+    return model_from_dict(data)
+
+
+def model_from_dict(data: dict) -> ReferenceModel:
+    if not isinstance(data, dict) or data.get("schema") != SCHEMA:
+        raise OrdinateError("This file is not an Ordinate PCA model (its 'schema' field is missing or different).")
+    version = data.get("schema_version")
+    if version != SCHEMA_VERSION:
+        raise OrdinateError(
+            f"This model was written in format version {version}; this Ordinate reads version {SCHEMA_VERSION}. "
+            "Use a matching Ordinate version or re-save the model."
+        )
+    try:
+        variables = tuple(str(v) for v in data["variables"])
+        loadings = np.asarray(data["loadings"], dtype=float).reshape(len(variables), int(data["components"]))
+        preprocessor = Preprocessor(
+            variables=variables,
+            transforms=tuple(data["transforms"]),
+            centre=_vector(data["centre"], len(variables)),
+            scale=_vector(data["scale"], len(variables)),
+            recipe=Recipe.from_dict(data["recipe"]),
+        )
+        return ReferenceModel(
+            recipe=preprocessor.recipe,
+            preprocessor=preprocessor,
+            loadings=loadings,
+            eigenvalues=_vector(data["eigenvalues"], loadings.shape[1]),
+            n_samples=int(data["n_samples"]),
+            total_variance=float(data["total_variance"]),
+            residual_theta=tuple(float(v) for v in data["residual_theta"]),
+            residual_eigenvalues=(
+                None if data.get("residual_eigenvalues") is None else np.asarray(data["residual_eigenvalues"], float)
+            ),
+            confidence=float(data["confidence"]),
+            q_limit=float(data["q_limit"]),
+            q_limit_method=str(data.get("q_limit_method", "")),
+            engine_version=str(data.get("engine_version", "")),
+        )
+    except (KeyError, TypeError, ValueError) as error:
+        raise OrdinateError(f"The model file is incomplete or damaged ({error}).") from error
+
+
+def project_table(model: ReferenceModel, table, confidence: float | None = None) -> Projection:
+    """Score the samples of an ingested table against ``model``.
+
+    T² uses the limit for new samples (Tracy, Young & Mason 1992), which is
+    wider than the limit for the samples the model was fitted on.
+    """
+    confidence = model.confidence if confidence is None else confidence
+    frame = table.frame
+    extra = tuple(c for c in table.numeric_columns if c not in model.variables and c != table.id_column)
+    matrix, filled = model.preprocessor.transform_frame(frame)
+    scores = matrix @ model.loadings
+    residual = matrix - scores @ model.loadings.T
+    q = np.einsum("ij,ij->i", residual, residual)
+    warnings = []
+    if filled:
+        warnings.append(f"{filled} missing value(s) in the new samples were set to the reference mean.")
+    if extra:
+        warnings.append(f"Ignored column(s) the model does not use: {', '.join(extra)}.")
+    labels = tuple(table.sample_labels())
+    return Projection(
+        sample_labels=labels,
+        scores=scores,
+        t2=hotelling_t2(scores, model.eigenvalues),
+        q=q,
+        t2_limit=t2_limit(model.n_samples, model.components, confidence, new_samples=True),
+        q_limit=_q_limit_for(model, confidence),
+        filled_cells=filled,
+        extra_columns=extra,
+        warnings=tuple(warnings),
+    )
+
+
+def projection_report(model: ReferenceModel, projection: Projection) -> dict:
+    names = [f"PC{a + 1}" for a in range(model.components)]
+    return {
+        "version": 1,
+        "engine_version": ENGINE_VERSION,
+        "model_engine_version": model.engine_version,
+        "components": model.components,
+        "variables": list(model.variables),
+        "samples": list(projection.sample_labels),
+        "scores": {n: [float(v) for v in projection.scores[:, a]] for a, n in enumerate(names)},
+        "t2": [float(v) for v in projection.t2],
+        "q": [float(v) for v in projection.q],
+        "t2_limit": projection.t2_limit,
+        "t2_limit_form": "new samples",
+        "q_limit": projection.q_limit,
+        "t2_flagged": [s for s, v in zip(projection.sample_labels, projection.t2) if v > projection.t2_limit],
+        "q_flagged": [s for s, v in zip(projection.sample_labels, projection.q) if v > projection.q_limit],
+        "extra_columns": list(projection.extra_columns),
+        "warnings": list(projection.warnings),
+    }
+
+
+def _q_limit_for(model: ReferenceModel, confidence: float) -> float:
+    if math.isclose(confidence, model.confidence):
+        return model.q_limit
+    if model.residual_eigenvalues is not None:
+        return q_limit(model.residual_eigenvalues, confidence)
+    theta1, theta2 = model.residual_theta
+    return q_limit_box(theta1, theta2, confidence)
+
+
+def _vector(values, length: int) -> np.ndarray:
+    array = np.asarray(values, dtype=float)
+    if array.shape != (length,):
+        raise ValueError(f"expected {length} numbers, found {array.size}")
+    return array

@@ -1,0 +1,199 @@
+"""One analysis from an ingested table: recipe → PCA fit → advice → diagnostics.
+
+The work splits in two so a cache can keep the expensive part:
+
+* :func:`fit_recipe` depends only on the data and the recipe (preprocessing,
+  eigendecomposition, component advice);
+* :func:`diagnose` adds what depends on the number of components K and the
+  confidence level (T², Q and their limits); it is cheap.
+
+:func:`analyse` runs both; :func:`analysis_report` gives the JSON document that
+``ordinate analyze --json`` writes.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from webapp.analysis import ENGINE_VERSION
+from webapp.analysis.diagnostics import hotelling_t2, q_limit, q_limit_box, q_residuals, t2_limit
+from webapp.analysis.errors import OrdinateError
+from webapp.analysis.pca import PCAFit, fit_pca
+from webapp.analysis.recipe import PreparedData, Recipe, prepare
+from webapp.analysis.selection import ComponentAdvice, advise_components
+
+REPORT_VERSION = 1
+MAX_REPORTED_EIGENVALUES = 1000
+# Parallel analysis repeats the eigendecomposition once per permutation; keep
+# its cost near a few passes over the data for large tables.
+PERMUTATION_BUDGET_CELLS = 4e7
+
+
+@dataclass(frozen=True, eq=False)
+class FittedRecipe:
+    recipe: Recipe
+    prepared: PreparedData
+    pca: PCAFit
+    advice: ComponentAdvice
+
+    @property
+    def warnings(self) -> tuple[str, ...]:
+        return self.prepared.warnings
+
+
+@dataclass(frozen=True, eq=False)
+class Diagnostics:
+    components: int
+    confidence: float
+    t2: np.ndarray
+    q: np.ndarray
+    t2_limit: float
+    q_limit: float
+    q_limit_method: str
+
+    @property
+    def t2_flagged(self) -> np.ndarray:
+        return self.t2 > self.t2_limit
+
+    @property
+    def q_flagged(self) -> np.ndarray:
+        return self.q > self.q_limit
+
+
+@dataclass(frozen=True, eq=False)
+class Analysis:
+    fitted: FittedRecipe
+    diagnostics: Diagnostics
+
+    @property
+    def warnings(self) -> tuple[str, ...]:
+        return self.fitted.warnings
+
+
+def fit_recipe(table, recipe: Recipe, *, seed: int = 0) -> FittedRecipe:
+    prepared = prepare(table, recipe)
+    pca = fit_pca(prepared.matrix)
+    n, p = prepared.matrix.shape
+    permutations = int(np.clip(PERMUTATION_BUDGET_CELLS / (n * p), 20, 100))
+    advice = advise_components(
+        pca.eigenvalues,
+        pca.total_variance,
+        p,
+        X=prepared.matrix,
+        n_permutations=permutations,
+        seed=seed,
+    )
+    return FittedRecipe(recipe, prepared, pca, advice)
+
+
+def resolve_components(fitted: FittedRecipe, components: int | str | None) -> int:
+    """K from a user's choice: a number, or ``auto``/None for the recommendation."""
+    available = fitted.pca.n_components
+    if components in (None, "auto"):
+        return int(min(max(fitted.advice.recommended, 1), available))
+    try:
+        k = int(components)
+    except (TypeError, ValueError):
+        raise OrdinateError(f"The number of components must be a whole number or 'auto'; got '{components}'.") from None
+    if not 1 <= k <= available:
+        raise OrdinateError(
+            f"The number of components must be between 1 and {available} for this data; got {k}."
+        )
+    return k
+
+
+def diagnose(fitted: FittedRecipe, components: int | str | None = "auto", confidence: float = 0.95) -> Diagnostics:
+    """T² and Q of the model's samples at K components, with control limits."""
+    if not 0 < confidence < 1:
+        raise OrdinateError(f"The confidence level must be between 0 and 1 (for example 0.95); got {confidence}.")
+    pca, X = fitted.pca, fitted.prepared.matrix
+    k = resolve_components(fitted, components)
+    t2 = hotelling_t2(pca.scores[:, :k], pca.eigenvalues[:k])
+    q, q_lim, method = _q_with_limit(pca, X, k, confidence)
+    return Diagnostics(
+        components=k,
+        confidence=float(confidence),
+        t2=t2,
+        q=q,
+        t2_limit=t2_limit(pca.n_samples, k, confidence) if k < pca.n_samples else float("inf"),
+        q_limit=q_lim,
+        q_limit_method=method,
+    )
+
+
+def analyse(table, recipe: Recipe, components: int | str | None = "auto", confidence: float = 0.95) -> Analysis:
+    fitted = fit_recipe(table, recipe)
+    return Analysis(fitted, diagnose(fitted, components, confidence))
+
+
+def residual_moments(pca: PCAFit, k: int) -> tuple[float, float]:
+    """θ1 and θ2: sums of the residual eigenvalues and of their squares beyond K."""
+    leading = pca.eigenvalues[:k]
+    theta1 = max(pca.total_variance - float(leading.sum()), 0.0)
+    theta2 = max(pca.sum_squared_eigenvalues - float(np.sum(leading**2)), 0.0)
+    return theta1, theta2
+
+
+def _q_with_limit(pca: PCAFit, X: np.ndarray, k: int, confidence: float):
+    if pca.complete_spectrum and pca.n_components >= pca.rank:
+        # All variance-carrying components are kept, so the residual is exactly
+        # the discarded scores: no cancellation from ||x||² - ||t||².
+        q = np.einsum("ij,ij->i", pca.scores[:, k:], pca.scores[:, k:])
+        return q, q_limit(pca.eigenvalues[k:], confidence, total_variance=pca.total_variance), "Jackson–Mudholkar (1979)"
+    q = q_residuals(X, pca.scores[:, :k], pca.loadings[:, :k])
+    theta1, theta2 = residual_moments(pca, k)
+    return q, q_limit_box(theta1, theta2, confidence), "Box (1954) scaled chi-square"
+
+
+def analysis_report(analysis: Analysis, table=None) -> dict:
+    """The documented JSON report (see docs/cli.md)."""
+    fitted, diag = analysis.fitted, analysis.diagnostics
+    pca, prepared = fitted.pca, fitted.prepared
+    k = diag.components
+    names = [f"PC{a + 1}" for a in range(k)]
+    reported = min(pca.eigenvalues.size, MAX_REPORTED_EIGENVALUES if pca.n_variables <= MAX_REPORTED_EIGENVALUES else 100)
+    return {
+        "version": REPORT_VERSION,
+        "engine_version": ENGINE_VERSION,
+        "recipe": fitted.recipe.to_dict(),
+        "recipe_description": fitted.recipe.describe(),
+        "solver": pca.solver,
+        "variables": list(prepared.variables),
+        "samples": list(prepared.sample_labels),
+        "n_samples": pca.n_samples,
+        "n_variables": pca.n_variables,
+        "eigenvalues": _floats(pca.eigenvalues[:reported]),
+        "eigenvalue_denominator": "n - 1",
+        "total_variance": float(pca.total_variance),
+        "explained_variance_ratio": _floats(pca.explained_variance_ratio[:reported]),
+        "cumulative_explained": _floats(pca.cumulative_explained[:reported]),
+        "components": k,
+        "loadings": {
+            name: dict(zip(prepared.variables, _floats(pca.loadings[:, a]))) for a, name in enumerate(names)
+        },
+        "scores": {name: _floats(pca.scores[:, a]) for a, name in enumerate(names)},
+        "t2": _floats(diag.t2),
+        "q": _floats(diag.q),
+        "t2_limit": float(diag.t2_limit),
+        "q_limit": float(diag.q_limit),
+        "q_limit_method": diag.q_limit_method,
+        "confidence": diag.confidence,
+        "recommended_components": fitted.advice.recommended,
+        "recommendation_rule": fitted.advice.rule,
+        "component_rules": {
+            "kaiser": fitted.advice.kaiser,
+            "broken_stick": fitted.advice.broken_stick,
+            "parallel_analysis": fitted.advice.parallel,
+            "cumulative": fitted.advice.cumulative,
+            "cumulative_threshold": fitted.advice.cumulative_threshold,
+        },
+        "t2_flagged": [s for s, f in zip(prepared.sample_labels, diag.t2_flagged) if f],
+        "q_flagged": [s for s, f in zip(prepared.sample_labels, diag.q_flagged) if f],
+        "warnings": list(getattr(table, "warnings", ())) + list(analysis.warnings),
+    }
+
+
+def _floats(values) -> list[float]:
+    return [float(v) for v in np.asarray(values).ravel()]

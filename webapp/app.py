@@ -1,0 +1,117 @@
+"""The app factory: ``create_app(config)`` builds a complete Ordinate server.
+
+Everything a request needs (the data store, the compute cache) is created here
+and reached through the ``Services`` object closed over by the callbacks; no
+module holds mutable state, so several apps (tests) and several worker
+processes (production) coexist safely. Workers share only the data directory.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+from pathlib import Path
+
+import dash
+from flask import redirect, request
+
+from webapp import __version__
+from webapp.analysis.errors import OrdinateError
+from webapp.compute import ComputeLayer
+from webapp.config import DEMO_TITLE, AppConfig
+from webapp.state import ViewState, to_query
+from webapp.storage import DataStore
+from webapp.ui.callbacks import register_callbacks
+from webapp.ui.layout import FILE_INPUT_HTML, build_layout
+from webapp.ui.view_model import table_summary
+from webapp.upload import register_upload_route
+
+ASSETS = Path(__file__).resolve().parent.parent / "assets"
+DEMO_SETTING = "demo-token"
+log = logging.getLogger("ordinate")
+
+
+@dataclass(frozen=True)
+class Services:
+    config: AppConfig
+    store: DataStore
+    compute: ComputeLayer
+
+
+def create_services(config: AppConfig) -> Services:
+    store = DataStore(config.data_dir)
+    compute = ComputeLayer(store, Path(config.data_dir) / "results")
+    return Services(config, store, compute)
+
+
+def create_app(config: AppConfig | None = None) -> dash.Dash:
+    config = config or AppConfig.from_environment()
+    services = create_services(config)
+    app = dash.Dash(
+        __name__,
+        title=config.title,
+        assets_folder=str(ASSETS),
+        suppress_callback_exceptions=True,
+        update_title=None,
+    )
+    app.index_string = _index_string()
+    app.layout = build_layout(config)
+    register_callbacks(app, services)
+    register_upload_route(app.server, services.store, limit_bytes=config.max_upload_bytes,
+                          inspect=lambda record: _inspect_upload(services, record))
+    _ensure_demo(services)
+    _register_start_page(app, services)
+    app.server.config["ordinate.services"] = services
+    return app
+
+
+def _inspect_upload(services: Services, record) -> dict:
+    """Parse an uploaded file right away so a bad file is reported at once."""
+    table = services.compute.table(record)
+    return table_summary(record, table)
+
+
+def _ensure_demo(services: Services) -> None:
+    demo = services.config.demo_dataset
+    if demo is None or services.store.get_setting(DEMO_SETTING) or not Path(demo).exists():
+        return
+    record = services.store.add_bytes(Path(demo).read_bytes(), Path(demo).name, title=DEMO_TITLE)
+    if not services.store.add_if_absent(DEMO_SETTING, record.token):
+        log.info("another worker registered the demo dataset first")
+
+
+def _register_start_page(app: dash.Dash, services: Services) -> None:
+    """The bare address opens the demo analysis, as a complete view URL."""
+
+    @app.server.before_request
+    def open_demo():
+        if request.path != "/" or request.args:
+            return None
+        token = services.store.get_setting(DEMO_SETTING)
+        if token and services.store.dataset(token):
+            return redirect("/?" + to_query(ViewState(dataset=token)), code=302)
+        return None
+
+
+def _index_string() -> str:
+    return """<!DOCTYPE html>
+<html lang="en">
+    <head>
+        {%metas%}
+        <title>{%title%}</title>
+        {%favicon%}
+        {%css%}
+    </head>
+    <body>
+        """ + FILE_INPUT_HTML + """
+        {%app_entry%}
+        <footer>
+            {%config%}
+            {%scripts%}
+            {%renderer%}
+        </footer>
+    </body>
+</html>"""
+
+
+__all__ = ["create_app", "create_services", "Services", "OrdinateError", "__version__"]

@@ -1,0 +1,208 @@
+"""The ``ordinate`` command: serve the dashboard, or analyse and project from the shell.
+
+Bad input ends with exit status 2 and one plain sentence on stderr; a traceback
+is never shown for a problem with the user's data or options.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+
+from webapp import __version__
+from webapp.analysis.errors import OrdinateError
+
+EXIT_BAD_INPUT = 2
+SHOWN_TABLE_ROWS = 15
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = _parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.run(args)
+    except OrdinateError as error:
+        print(f"ordinate: {error}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except OSError as error:
+        print(f"ordinate: cannot read or write a file: {error.strerror or error} ({error.filename}).", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        return 130
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="ordinate", description="Principal component analysis a team can share.")
+    parser.add_argument("--version", action="version", version=f"ordinate {__version__}")
+    commands = parser.add_subparsers(dest="command", required=True)
+    _add_analyze(commands)
+    _add_project(commands)
+    _add_serve(commands)
+    return parser
+
+
+def _add_analyze(commands) -> None:
+    cmd = commands.add_parser("analyze", help="fit PCA to a CSV/TSV file and print the variance table")
+    cmd.add_argument("data", type=Path, help="CSV or TSV file of samples (rows) by variables (columns)")
+    cmd.add_argument("--scaling", choices=("none", "unit", "pareto", "range"), default="unit")
+    cmd.add_argument("--centring", "--centering", dest="centring", choices=("mean", "none"), default="mean")
+    cmd.add_argument("--components", default="auto", help="number of components K, or 'auto' (default)")
+    cmd.add_argument("--id-column", help="column holding sample labels (default: detected)")
+    cmd.add_argument("--group-column", help="column of groups; reported for reference, not used in the fit")
+    cmd.add_argument("--exclude-columns", nargs="+", default=(), metavar="C", help="numeric columns to leave out")
+    cmd.add_argument("--exclude-samples", nargs="+", default=(), metavar="S", help="sample labels to leave out")
+    cmd.add_argument("--transform", action="append", default=[], metavar="VAR=T",
+                     help="per-variable transform (log10, ln, log1p, sqrt); repeatable")
+    cmd.add_argument("--missing", choices=("drop", "mean", "iterative"), default="drop")
+    cmd.add_argument("--confidence", type=float, default=0.95, help="confidence for T² and Q limits (default 0.95)")
+    cmd.add_argument("--json", type=Path, metavar="OUT", help="write the full results as JSON")
+    cmd.add_argument("--model", type=Path, metavar="OUT", help="save the reference model for `ordinate project`")
+    cmd.set_defaults(run=_run_analyze)
+
+
+def _add_project(commands) -> None:
+    cmd = commands.add_parser("project", help="score new samples against a saved reference model")
+    cmd.add_argument("model", type=Path, help="model JSON written by `ordinate analyze --model`")
+    cmd.add_argument("data", type=Path, help="CSV or TSV file of new samples")
+    cmd.add_argument("--confidence", type=float, help="confidence for limits (default: the model's)")
+    cmd.add_argument("--json", type=Path, metavar="OUT", help="write scores, T² and Q as JSON")
+    cmd.set_defaults(run=_run_project)
+
+
+def _add_serve(commands) -> None:
+    cmd = commands.add_parser("serve", help="start the dashboard")
+    cmd.add_argument("--host", default="127.0.0.1")
+    cmd.add_argument("--port", type=int, default=8050)
+    cmd.add_argument("--data-dir", type=Path, default=Path(".ordinate-data"))
+    cmd.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
+    cmd.add_argument("--max-upload-mb", type=float, help="largest accepted upload in MB (default 200)")
+    cmd.set_defaults(run=_run_serve)
+
+
+def _run_analyze(args) -> int:
+    from webapp.analysis.ingest import read_table
+    from webapp.analysis.model_io import model_from_analysis, save_model
+    from webapp.analysis.pipeline import analyse, analysis_report
+    from webapp.analysis.recipe import Recipe
+
+    table = read_table(args.data)
+    _check_column(table, args.group_column, "group")
+    recipe = Recipe(
+        variables=_chosen_variables(table, args.exclude_columns, args.id_column),
+        excluded_samples=tuple(args.exclude_samples),
+        transforms=_parse_transforms(args.transform),
+        missing=args.missing,
+        centring=args.centring,
+        scaling=args.scaling,
+        id_column=args.id_column,
+    )
+    analysis = analyse(table, recipe, args.components, args.confidence)
+    report = analysis_report(analysis, table)
+    if args.group_column:
+        report["group_column"] = args.group_column
+    print(format_variance_table(report))
+    if args.json:
+        args.json.write_text(json.dumps(report, indent=1, ensure_ascii=False), encoding="utf-8")
+    if args.model:
+        save_model(model_from_analysis(analysis), args.model)
+    return 0
+
+
+def _run_project(args) -> int:
+    from webapp.analysis.ingest import read_table
+    from webapp.analysis.model_io import load_model, project_table, projection_report
+
+    model = load_model(args.model)
+    projection = project_table(model, read_table(args.data), args.confidence)
+    report = projection_report(model, projection)
+    print(format_projection(report))
+    if args.json:
+        args.json.write_text(json.dumps(report, indent=1, ensure_ascii=False), encoding="utf-8")
+    return 0
+
+
+def _run_serve(args) -> int:
+    from webapp.server import serve
+
+    return serve(host=args.host, port=args.port, data_dir=args.data_dir, workers=args.workers,
+                 max_upload_mb=args.max_upload_mb)
+
+
+# --- helpers -----------------------------------------------------------------
+
+
+def _check_column(table, column: str | None, role: str) -> None:
+    if column is not None and column not in table.frame.columns:
+        raise OrdinateError(f"The {role} column '{column}' is not in the data.")
+
+
+def _chosen_variables(table, excluded, id_column) -> tuple[str, ...] | None:
+    if not excluded:
+        return None
+    unknown = [c for c in excluded if c not in table.frame.columns]
+    if unknown:
+        raise OrdinateError(f"Cannot exclude column(s) not in the data: {', '.join(unknown)}.")
+    id_column = id_column or table.id_column
+    return tuple(c for c in table.numeric_columns if c not in excluded and c != id_column)
+
+
+def _parse_transforms(items: list[str]) -> tuple[tuple[str, str], ...]:
+    pairs = []
+    for item in items:
+        variable, sep, transform = item.rpartition("=")
+        if not sep or not variable:
+            raise OrdinateError(f"Write a transform as VARIABLE=TRANSFORM (for example 'Viscosity=log10'); got '{item}'.")
+        pairs.append((variable, transform))
+    return tuple(pairs)
+
+
+def format_variance_table(report: dict) -> str:
+    rules = report["component_rules"]
+    lines = [
+        f"{report['n_samples']} samples x {report['n_variables']} variables; "
+        f"eigenvalues of the covariance of the preprocessed data (n - 1 denominator).",
+        f"{'PC':>5}  {'eigenvalue':>12}  {'% variance':>10}  {'cumulative %':>12}",
+    ]
+    shown = min(len(report["eigenvalues"]), max(SHOWN_TABLE_ROWS, report["components"]))
+    for a in range(shown):
+        marker = "  <- K" if a + 1 == report["components"] else ""
+        lines.append(
+            f"{'PC' + str(a + 1):>5}  {report['eigenvalues'][a]:>12.4f}  "
+            f"{100 * report['explained_variance_ratio'][a]:>10.2f}  {100 * report['cumulative_explained'][a]:>12.2f}{marker}"
+        )
+    if shown < len(report["eigenvalues"]):
+        lines.append(f"  ... {len(report['eigenvalues']) - shown} more in the JSON output")
+    parallel = rules["parallel_analysis"]
+    lines.append(
+        f"Components to keep: Kaiser {rules['kaiser']}, broken stick {rules['broken_stick']}, "
+        f"parallel analysis {parallel if parallel is not None else 'not run'}, "
+        f"{100 * rules['cumulative_threshold']:.0f} % cumulative {rules['cumulative']}."
+    )
+    lines.append(f"Recommended: {report['recommended_components']} ({report['recommendation_rule']}); "
+                 f"K used: {report['components']}.")
+    lines.append(
+        f"At {100 * report['confidence']:g} % confidence: {len(report['t2_flagged'])} sample(s) above the T² limit, "
+        f"{len(report['q_flagged'])} above the Q limit. Flags are statistical evidence, not a release decision."
+    )
+    lines += [f"Note: {w}" for w in report["warnings"]]
+    return "\n".join(lines)
+
+
+def format_projection(report: dict) -> str:
+    lines = [
+        f"{len(report['samples'])} new sample(s) scored on {report['components']} component(s).",
+        f"{'sample':<20}  {'T²':>10}  {'Q':>10}  flag",
+    ]
+    for label, t2, q in zip(report["samples"], report["t2"], report["q"]):
+        flags = [name for name, over in (("T²", t2 > report["t2_limit"]), ("Q", q > report["q_limit"])) if over]
+        lines.append(f"{label[:20]:<20}  {t2:>10.3f}  {q:>10.3f}  {' '.join(flags)}")
+    lines.append(f"Limits: T² {report['t2_limit']:.3f} (new-sample form), Q {report['q_limit']:.3f}.")
+    lines.append("Flags are statistical evidence under the model's assumptions; follow your validated release procedure.")
+    lines += [f"Note: {w}" for w in report["warnings"]]
+    return "\n".join(lines)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

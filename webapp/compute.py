@@ -1,0 +1,90 @@
+"""The cached computation layer between the dashboard and the engine.
+
+Two kinds of result are kept on disk in a diskcache shared by every worker
+process (and by background jobs):
+
+* the parsed table of a dataset, keyed by content hash + engine version;
+* the fitted recipe (preprocessing, PCA, component advice), keyed by
+  content hash + canonical recipe JSON + engine version.
+
+Everything that only changes what is drawn (axes, sigma levels, colours,
+labels, arrows) and everything derived cheaply from a fit (T², Q and their
+limits for a given K and confidence) is computed from the cached fit, so it
+never refits. A small in-process memo of recently used fits avoids reading a
+large pickle from disk on every redraw; it is keyed by the same content key,
+so it can never disagree with the disk cache.
+
+``stats()`` reports how many fits and parses this cache has performed, which
+tests use to prove that a redraw did not refit.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import threading
+from collections import OrderedDict
+from pathlib import Path
+
+import diskcache
+
+from webapp.analysis import ENGINE_VERSION
+from webapp.analysis.ingest import Table, read_table
+from webapp.analysis.pipeline import Diagnostics, FittedRecipe, diagnose, fit_recipe
+from webapp.analysis.recipe import Recipe
+from webapp.storage import DataStore, DatasetRecord
+
+DEFAULT_CACHE_BYTES = 8 * 2**30
+MEMO_ENTRIES = 4
+
+
+class ComputeLayer:
+    def __init__(self, store: DataStore, cache_dir: str | Path, *, size_limit: int = DEFAULT_CACHE_BYTES):
+        self.store = store
+        self.cache = diskcache.Cache(str(cache_dir), size_limit=size_limit, eviction_policy="least-recently-used")
+        self._memo: OrderedDict[str, object] = OrderedDict()
+        self._memo_lock = threading.Lock()
+
+    # --- public --------------------------------------------------------------
+
+    def table(self, record: DatasetRecord) -> Table:
+        key = f"table/{ENGINE_VERSION}/{record.content_hash}"
+        return self._cached(key, lambda: read_table(self.store.blob_path(record), filename=record.filename), "parses")
+
+    def fitted(self, record: DatasetRecord, recipe: Recipe) -> FittedRecipe:
+        key = fit_key(record.content_hash, recipe)
+        return self._cached(key, lambda: fit_recipe(self.table(record), recipe), "fits")
+
+    def diagnostics(self, record: DatasetRecord, recipe: Recipe, components, confidence: float) -> Diagnostics:
+        return diagnose(self.fitted(record, recipe), components, confidence)
+
+    def is_fitted(self, record: DatasetRecord, recipe: Recipe) -> bool:
+        key = fit_key(record.content_hash, recipe)
+        return key in self._memo or key in self.cache
+
+    def stats(self) -> dict[str, int]:
+        return {name: int(self.cache.get(f"stats/{name}", 0)) for name in ("fits", "parses")}
+
+    # --- internals -----------------------------------------------------------
+
+    def _cached(self, key: str, compute, counter: str):
+        with self._memo_lock:
+            if key in self._memo:
+                self._memo.move_to_end(key)
+                return self._memo[key]
+        value = self.cache.get(key)
+        if value is None:
+            # Errors (OrdinateError) propagate and are not cached: the user may
+            # fix the recipe, and a transient failure must not stick.
+            value = compute()
+            self.cache.set(key, value)
+            self.cache.incr(f"stats/{counter}")
+        with self._memo_lock:
+            self._memo[key] = value
+            while len(self._memo) > MEMO_ENTRIES:
+                self._memo.popitem(last=False)
+        return value
+
+
+def fit_key(content_hash: str, recipe: Recipe) -> str:
+    digest = hashlib.sha256(recipe.canonical_json().encode("utf-8")).hexdigest()
+    return f"fit/{ENGINE_VERSION}/{content_hash}/{digest}"

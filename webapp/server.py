@@ -1,0 +1,60 @@
+"""``ordinate serve``: the dashboard under a production WSGI server (gunicorn).
+
+Each worker process builds its own app with :func:`webapp.app.create_app` from
+the same configuration; workers share nothing but the data directory, whose
+stores (diskcache/SQLite) are safe across processes. Several threads per
+worker keep the page responsive while a long computation runs.
+"""
+
+from __future__ import annotations
+
+import ipaddress
+import sys
+from pathlib import Path
+
+from webapp.config import AppConfig
+
+THREADS_PER_WORKER = 4
+# Long fits (large files, parallel analysis) must not be killed mid-way.
+WORKER_TIMEOUT_SECONDS = 600
+
+
+def serve(*, host: str, port: int, data_dir: Path, workers: int, max_upload_mb: float | None = None) -> int:
+    from gunicorn.app.base import BaseApplication
+
+    config = AppConfig.from_environment(data_dir=Path(data_dir), max_upload_mb=max_upload_mb)
+    config.data_dir.mkdir(parents=True, exist_ok=True)
+    # Build once in the parent so the demo dataset is registered before workers start.
+    from webapp.app import create_app
+
+    create_app(config)
+
+    class _Application(BaseApplication):
+        def load_config(self):
+            settings = {
+                "bind": f"{_bracketed(host)}:{port}",
+                "workers": max(1, int(workers)),
+                "threads": THREADS_PER_WORKER,
+                "worker_class": "gthread",
+                "timeout": WORKER_TIMEOUT_SECONDS,
+                "accesslog": None,
+                "errorlog": "-",
+                "loglevel": "warning",
+            }
+            for key, value in settings.items():
+                self.cfg.set(key, value)
+
+        def load(self):
+            return create_app(config).server
+
+    print(f"Ordinate is serving {config.data_dir.resolve()} at http://{_bracketed(host)}:{port}/ "
+          f"({workers} worker(s)). Press Ctrl+C to stop.", file=sys.stderr, flush=True)
+    _Application().run()
+    return 0
+
+
+def _bracketed(host: str) -> str:
+    try:
+        return f"[{host}]" if ipaddress.ip_address(host).version == 6 else host
+    except ValueError:
+        return host

@@ -1,0 +1,176 @@
+"""Datasets on disk: content-addressed files plus an index of unguessable tokens.
+
+Layout of the data directory::
+
+    blobs/<sha256>.bin   the uploaded bytes, named by their content hash
+    index/               a diskcache (SQLite) index: token -> dataset record
+
+A dataset is reached only through its token (``secrets.token_urlsafe``, 144
+random bits); the content hash identifies the bytes for caching and
+provenance and never appears in a path built from user input. Files are
+written to a temporary name and renamed into place, so a crash never leaves a
+half-written dataset, and diskcache's SQLite index is safe to share between
+worker processes.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import re
+import secrets
+import tempfile
+import time
+from dataclasses import asdict, dataclass
+from pathlib import Path
+from typing import BinaryIO
+
+import diskcache
+
+TOKEN_BYTES = 18  # 144 random bits
+TOKEN_PATTERN = re.compile(r"^[A-Za-z0-9_-]{16,64}$")
+_HASH_PATTERN = re.compile(r"^[0-9a-f]{64}$")
+CHUNK_BYTES = 1 << 20
+
+
+class UploadTooLarge(Exception):
+    """The upload exceeded the configured size limit."""
+
+    def __init__(self, limit_bytes: int):
+        super().__init__(f"limit {limit_bytes} bytes")
+        self.limit_bytes = limit_bytes
+
+
+@dataclass(frozen=True)
+class DatasetRecord:
+    token: str
+    content_hash: str
+    filename: str
+    size_bytes: int
+    created: float
+    title: str = ""
+
+    @property
+    def display_name(self) -> str:
+        return self.title or self.filename
+
+
+def new_token() -> str:
+    return secrets.token_urlsafe(TOKEN_BYTES)
+
+
+def is_token(value: object) -> bool:
+    return isinstance(value, str) and bool(TOKEN_PATTERN.match(value))
+
+
+class DataStore:
+    """Datasets kept in ``data_dir``; safe to use from several processes."""
+
+    def __init__(self, data_dir: str | os.PathLike):
+        self.root = Path(data_dir)
+        self.blob_dir = self.root / "blobs"
+        self.blob_dir.mkdir(parents=True, exist_ok=True)
+        self.index = diskcache.Cache(str(self.root / "index"), size_limit=2**40, eviction_policy="none")
+
+    # --- writing ------------------------------------------------------------
+
+    def add_bytes(self, data: bytes, filename: str, *, title: str = "") -> DatasetRecord:
+        content_hash = hashlib.sha256(data).hexdigest()
+        target = self._blob_path(content_hash)
+        if not target.exists():
+            with self._temporary_file() as (handle, temp_path):
+                handle.write(data)
+            os.replace(temp_path, target)
+        return self._register(content_hash, filename, len(data), title)
+
+    def add_stream(self, stream: BinaryIO, filename: str, *, limit_bytes: int, title: str = "") -> DatasetRecord:
+        """Copy a request body to disk in chunks, hashing as it goes.
+
+        Raises :class:`UploadTooLarge` as soon as more than ``limit_bytes``
+        arrive; the partial file is removed.
+        """
+        digest, size = hashlib.sha256(), 0
+        with self._temporary_file() as (handle, temp_path):
+            while chunk := stream.read(CHUNK_BYTES):
+                size += len(chunk)
+                if size > limit_bytes:
+                    handle.close()
+                    os.unlink(temp_path)
+                    raise UploadTooLarge(limit_bytes)
+                digest.update(chunk)
+                handle.write(chunk)
+        content_hash = digest.hexdigest()
+        target = self._blob_path(content_hash)
+        if target.exists():
+            os.unlink(temp_path)
+        else:
+            os.replace(temp_path, target)
+        return self._register(content_hash, filename, size, title)
+
+    def _register(self, content_hash: str, filename: str, size: int, title: str) -> DatasetRecord:
+        record = DatasetRecord(new_token(), content_hash, _clean_filename(filename), size, time.time(), title)
+        self.index.set(("dataset", record.token), asdict(record))
+        return record
+
+    # --- reading ------------------------------------------------------------
+
+    def dataset(self, token: object) -> DatasetRecord | None:
+        if not is_token(token):
+            return None
+        data = self.index.get(("dataset", token))
+        return DatasetRecord(**data) if data else None
+
+    def blob_path(self, record: DatasetRecord) -> Path:
+        return self._blob_path(record.content_hash)
+
+    def read_bytes(self, record: DatasetRecord) -> bytes:
+        return self.blob_path(record).read_bytes()
+
+    # --- small settings shared by all workers --------------------------------
+
+    def get_setting(self, name: str, default=None):
+        return self.index.get(("setting", name), default)
+
+    def set_setting(self, name: str, value) -> None:
+        self.index.set(("setting", name), value)
+
+    def add_if_absent(self, name: str, value) -> bool:
+        """Atomically set a setting only if it is not set yet; True if this call set it."""
+        return self.index.add(("setting", name), value)
+
+    # --- internals ----------------------------------------------------------
+
+    def _blob_path(self, content_hash: str) -> Path:
+        if not _HASH_PATTERN.match(content_hash):
+            raise ValueError("not a content hash")
+        return self.blob_dir / f"{content_hash}.bin"
+
+    def _temporary_file(self):
+        return _TemporaryFile(self.blob_dir)
+
+
+class _TemporaryFile:
+    """A temp file in the blob directory (same file system, so rename is atomic)."""
+
+    def __init__(self, directory: Path):
+        self.directory = directory
+
+    def __enter__(self):
+        fd, self.path = tempfile.mkstemp(dir=self.directory, prefix=".upload-", suffix=".part")
+        self.handle = os.fdopen(fd, "wb")
+        return self.handle, self.path
+
+    def __exit__(self, exc_type, exc, tb):
+        if not self.handle.closed:
+            self.handle.flush()
+            os.fsync(self.handle.fileno())
+            self.handle.close()
+        if exc_type is not None and os.path.exists(self.path):
+            os.unlink(self.path)
+        return False
+
+
+def _clean_filename(name: str) -> str:
+    base = os.path.basename(str(name or "")).strip()
+    base = re.sub(r"[\x00-\x1f\x7f]", "", base)[:200]
+    return base or "uploaded data"

@@ -1,0 +1,320 @@
+"""Thin callbacks: read the URL, call the view model, return what is drawn.
+
+The address bar is the single source of truth. One callback (``show_view``)
+turns the URL into every control value and every figure; the others turn a
+user's action into a new URL (``write_url`` and friends), never touching
+figures directly. A control change therefore always goes URL → view, which is
+what makes every view a shareable link and lets Back/Forward work.
+
+Loops are avoided by comparing *states*, not strings: when ``show_view`` sets
+the controls, ``write_url`` sees a state equal to the URL's and does nothing.
+"""
+
+from __future__ import annotations
+
+from dash import ALL, Input, Output, State, ctx, no_update
+from dash.exceptions import PreventUpdate
+
+from webapp.analysis.errors import OrdinateError
+from webapp.state import NO_COLOUR, ViewState, parse_query, to_query
+from webapp.ui import layout as L
+from webapp.ui import view_model as vm
+from webapp.ui.components import (
+    dataset_summary,
+    excluded_chips,
+    flagged_table,
+    notice_list,
+    not_found_card,
+    provenance_block,
+    transform_chips,
+    variance_table,
+)
+
+AUTO = "auto"
+NO_COLOUR_VALUE = "__none__"
+
+
+def register_callbacks(app, services) -> None:
+    _register_show_view(app, services)
+    _register_write_url(app)
+    _register_actions(app, services)
+    _register_clientside(app)
+
+
+# --- URL -> everything shown ---------------------------------------------------------
+
+_VIEW_OUTPUTS = [
+    Output(L.DATASET_TITLE, "children"),
+    Output(L.DATASET_SUMMARY, "children"),
+    Output(L.NOTICES, "children"),
+    Output(L.NOT_FOUND, "children"),
+    Output(L.NOT_FOUND, "hidden"),
+    Output(L.WORKSPACE, "hidden"),
+    Output(L.RECIPE_WORDS, "children"),
+    Output(L.ID_COLUMN, "options"),
+    Output(L.ID_COLUMN, "value"),
+    Output(L.COLOUR_BY, "options"),
+    Output(L.COLOUR_BY, "value"),
+    Output(L.VARIABLES, "options"),
+    Output(L.VARIABLES, "value"),
+    Output(L.TRANSFORM_VARIABLE, "options"),
+    Output(L.TRANSFORM_LIST, "children"),
+    Output(L.MISSING, "value"),
+    Output(L.CENTRING, "value"),
+    Output(L.SCALING, "value"),
+    Output(L.EXCLUDED_LIST, "children"),
+    Output(L.PC_X, "options"),
+    Output(L.PC_X, "value"),
+    Output(L.PC_Y, "options"),
+    Output(L.PC_Y, "value"),
+    Output(L.SIGMA_LEVELS, "value"),
+    Output(L.ELLIPSE_BY, "value"),
+    Output(L.OVERLAYS, "value"),
+    Output(L.BIPLOT_SCALING, "value"),
+    Output(L.COMPONENTS, "options"),
+    Output(L.COMPONENTS, "value"),
+    Output(L.CONFIDENCE, "value"),
+    Output(L.LOADING_PC, "options"),
+    Output(L.LOADING_PC, "value"),
+    Output(L.SCORES_GRAPH, "figure"),
+    Output(L.VARIANCE_TABLE, "children"),
+    Output(L.VARIANCE_GRAPH, "figure"),
+    Output(L.COMPONENT_ADVICE, "children"),
+    Output(L.COPY_TABLE, "content"),
+    Output(L.DIAGNOSTICS_GRAPH, "figure"),
+    Output(L.FLAGGED_LIST, "children"),
+    Output(L.CONTRIBUTIONS, "children"),
+    Output(L.LOADINGS_GRAPH, "figure"),
+    Output(L.CIRCLE_GRAPH, "figure"),
+    Output(L.PROVENANCE, "children"),
+]
+
+
+def _register_show_view(app, services) -> None:
+    @app.callback(_VIEW_OUTPUTS, Input(L.URL, "search"))
+    def show_view(search):
+        state, notices = parse_query(search)
+        try:
+            view = vm.build_view(services, state, notices)
+        except vm.DatasetNotFound:
+            return _not_found_outputs(notices)
+        return _view_outputs(view)
+
+
+def _not_found_outputs(notices) -> list:
+    outputs = [no_update] * len(_VIEW_OUTPUTS)
+    outputs[0] = "Dataset not found"
+    outputs[2] = notice_list(notices, ())
+    outputs[3] = not_found_card()
+    outputs[4] = False
+    outputs[5] = True
+    return outputs
+
+
+def _view_outputs(view: "vm.View") -> list:
+    s, controls = view.state, view.controls
+    colour_value = AUTO if s.colour_by is None else (NO_COLOUR_VALUE if s.colour_by == NO_COLOUR else s.colour_by)
+    overlays = [name for name, on in (("arrows", s.arrows), ("hotelling", s.hotelling), ("labels", s.labels)) if on]
+    return [
+        view.title,
+        dataset_summary(view.summary),
+        notice_list(view.notices, view.errors),
+        None,
+        True,
+        False,
+        " ".join(view.recipe_words),
+        controls.id_options,
+        AUTO if s.id_column is None else s.id_column,
+        controls.colour_options,
+        colour_value,
+        controls.variable_options,
+        controls.variables_in,
+        controls.variable_options,
+        transform_chips(s.transforms),
+        s.missing,
+        s.centring,
+        s.scaling,
+        excluded_chips(s.excluded),
+        controls.pc_options,
+        view.pc_x,
+        controls.pc_options,
+        view.pc_y,
+        ", ".join(f"{level:g}" for level in s.sigma_levels),
+        s.ellipse_by,
+        overlays,
+        s.biplot_scaling,
+        controls.component_options,
+        AUTO if s.components is None else s.components,
+        s.confidence,
+        controls.pc_options,
+        view.loading_pc,
+        view.scores_figure,
+        variance_table(view.variance_rows),
+        view.variance_figure,
+        view.advice_text,
+        view.variance_tsv,
+        view.diagnostics_figure,
+        flagged_table(view.flagged),
+        view.contributions,
+        view.loadings_figure,
+        view.circle_figure,
+        provenance_block(view.provenance),
+    ]
+
+
+# --- controls -> URL ------------------------------------------------------------------
+
+
+def _register_write_url(app) -> None:
+    @app.callback(
+        Output(L.URL, "search", allow_duplicate=True),
+        Input(L.ID_COLUMN, "value"),
+        Input(L.COLOUR_BY, "value"),
+        Input(L.VARIABLES, "value"),
+        Input(L.MISSING, "value"),
+        Input(L.CENTRING, "value"),
+        Input(L.SCALING, "value"),
+        Input(L.PC_X, "value"),
+        Input(L.PC_Y, "value"),
+        Input(L.SIGMA_LEVELS, "value"),
+        Input(L.ELLIPSE_BY, "value"),
+        Input(L.OVERLAYS, "value"),
+        Input(L.BIPLOT_SCALING, "value"),
+        Input(L.COMPONENTS, "value"),
+        Input(L.CONFIDENCE, "value"),
+        Input(L.LOADING_PC, "value"),
+        State(L.VARIABLES, "options"),
+        State(L.URL, "search"),
+        prevent_initial_call=True,
+    )
+    def write_url(id_column, colour, variables_in, missing, centring, scaling, pc_x, pc_y, sigma, ellipse_by,
+                  overlays, biplot, components, confidence, loading_pc, variable_options, search):
+        current, _ = parse_query(search)
+        if current.dataset is None:
+            raise PreventUpdate
+        all_variables = [option["value"] for option in variable_options or ()]
+        changes = dict(
+            id_column=None if id_column in (None, AUTO) else id_column,
+            colour_by=None if colour in (None, AUTO) else (NO_COLOUR if colour == NO_COLOUR_VALUE else colour),
+            variables_off=tuple(v for v in all_variables if v not in set(variables_in or ())),
+            missing=missing or current.missing,
+            centring=centring or current.centring,
+            scaling=scaling or current.scaling,
+            pc_x=int(pc_x or current.pc_x),
+            pc_y=int(pc_y or current.pc_y),
+            sigma_levels=vm.parse_sigma_levels(sigma, current.sigma_levels),
+            ellipse_by=ellipse_by or current.ellipse_by,
+            arrows="arrows" in (overlays or ()),
+            hotelling="hotelling" in (overlays or ()),
+            labels="labels" in (overlays or ()),
+            biplot_scaling=biplot or current.biplot_scaling,
+            components=None if components in (None, AUTO) else int(components),
+            confidence=float(confidence or current.confidence),
+            loading_pc=int(loading_pc or current.loading_pc),
+        )
+        return _search_if_changed(current, current.replace(**changes))
+
+
+def _search_if_changed(current: ViewState, new: ViewState):
+    if new == current:
+        raise PreventUpdate
+    return "?" + to_query(new)
+
+
+# --- actions: exclusions, transforms, picking, upload ------------------------------------------
+
+
+def _register_actions(app, services) -> None:
+    url_out = Output(L.URL, "search", allow_duplicate=True)
+
+    @app.callback(url_out, Input(L.EXCLUDE_SELECTED, "n_clicks"), State(L.SCORES_GRAPH, "selectedData"),
+                  State(L.URL, "search"), prevent_initial_call=True)
+    def exclude_selected(_clicks, selected, search):
+        current, _ = parse_query(search)
+        labels = vm.labels_from_event(selected)
+        if not labels:
+            raise PreventUpdate
+        picked = None if current.picked in labels else current.picked
+        return _search_if_changed(current, current.replace(excluded=current.excluded + tuple(labels), picked=picked))
+
+    @app.callback(url_out, Input({"type": "restore-sample", "index": ALL}, "n_clicks"),
+                  Input(L.RESTORE_ALL, "n_clicks"), State(L.URL, "search"), prevent_initial_call=True)
+    def restore_samples(_chips, _all, search):
+        current, _ = parse_query(search)
+        trigger = ctx.triggered_id
+        if not ctx.triggered or not ctx.triggered[0].get("value"):
+            raise PreventUpdate
+        if trigger == L.RESTORE_ALL:
+            return _search_if_changed(current, current.replace(excluded=()))
+        remaining = tuple(label for label in current.excluded if label != trigger["index"])
+        return _search_if_changed(current, current.replace(excluded=remaining))
+
+    @app.callback(url_out, Input({"type": "exclude-picked", "index": ALL}, "n_clicks"), State(L.URL, "search"),
+                  prevent_initial_call=True)
+    def exclude_picked(clicks, search):
+        current, _ = parse_query(search)
+        if not any(clicks or ()) or current.picked is None:
+            raise PreventUpdate
+        return _search_if_changed(current, current.replace(excluded=current.excluded + (current.picked,), picked=None))
+
+    @app.callback(url_out, Input(L.TRANSFORM_APPLY, "n_clicks"), State(L.TRANSFORM_KIND, "value"),
+                  State(L.TRANSFORM_VARIABLE, "value"), State(L.URL, "search"), prevent_initial_call=True)
+    def set_transform(_clicks, kind, variable, search):
+        current, _ = parse_query(search)
+        if not variable or not kind:
+            raise PreventUpdate
+        pairs = dict(current.transforms)
+        pairs[variable] = kind
+        return _search_if_changed(current, current.replace(transforms=tuple((v, t) for v, t in pairs.items() if t != "none")))
+
+    @app.callback(url_out, Input({"type": "remove-transform", "index": ALL}, "n_clicks"), State(L.URL, "search"),
+                  prevent_initial_call=True)
+    def remove_transform(_clicks, search):
+        current, _ = parse_query(search)
+        if not ctx.triggered or not ctx.triggered[0].get("value"):
+            raise PreventUpdate
+        variable = ctx.triggered_id["index"]
+        return _search_if_changed(current, current.replace(transforms=tuple(p for p in current.transforms if p[0] != variable)))
+
+    @app.callback(url_out, Input(L.SCORES_GRAPH, "clickData"), Input(L.DIAGNOSTICS_GRAPH, "clickData"),
+                  State(L.URL, "search"), prevent_initial_call=True)
+    def pick_sample(scores_click, diagnostics_click, search):
+        current, _ = parse_query(search)
+        event = scores_click if ctx.triggered_id == L.SCORES_GRAPH else diagnostics_click
+        labels = vm.labels_from_event(event)
+        if not labels:
+            raise PreventUpdate
+        return _search_if_changed(current, current.replace(picked=labels[0]))
+
+    @app.callback(url_out, Output(L.NOTICES, "children", allow_duplicate=True), Input(L.UPLOAD_RESULT, "data"),
+                  prevent_initial_call=True)
+    def open_uploaded(result):
+        if not result:
+            raise PreventUpdate
+        if result.get("error"):
+            return no_update, notice_list((), (result["error"],))
+        return "?" + to_query(ViewState(dataset=result["token"])), no_update
+
+    @app.callback(Output(L.VARIABLES, "value", allow_duplicate=True), Input(L.VARIABLES_ALL, "n_clicks"),
+                  State(L.VARIABLES, "options"), prevent_initial_call=True)
+    def include_all_variables(_clicks, options):
+        return [option["value"] for option in options or ()]
+
+    @app.callback(Output(L.TABLE_DOWNLOAD, "data"), Input(L.DOWNLOAD_TABLE, "n_clicks"), State(L.URL, "search"),
+                  prevent_initial_call=True)
+    def download_table(_clicks, search):
+        state, _ = parse_query(search)
+        try:
+            csv_text, filename = vm.variance_csv(services, state)
+        except (vm.DatasetNotFound, OrdinateError):
+            raise PreventUpdate from None
+        return {"content": csv_text, "filename": filename, "type": "text/csv"}
+
+
+def _register_clientside(app) -> None:
+    app.clientside_callback(
+        "function(href) { return href || window.location.href; }",
+        Output(L.LINK_TEXT, "value"),
+        Input(L.URL, "href"),
+    )
+

@@ -1,0 +1,124 @@
+"""Small Dash component builders: notices, chips, tables, summary and provenance.
+
+User text (column names, labels, messages) is always passed as plain text
+children, which Dash escapes; nothing here renders raw HTML.
+"""
+
+from __future__ import annotations
+
+from dash import html
+
+
+def notice_list(notices, errors) -> list:
+    items = [html.Li(text, className="notice notice-error") for text in errors]
+    items += [html.Li(text, className="notice") for text in notices]
+    return [html.Ul(items, className="notice-list")] if items else []
+
+
+def not_found_card() -> html.Div:
+    return html.Div(className="card not-found-card", children=[
+        html.H2("This dataset link is not known here"),
+        html.P(
+            "The link may be mistyped or cut short, or the dataset was deleted by its owner. "
+            "Ask the colleague who sent it for a fresh link, or load a CSV file of your own."
+        ),
+        html.A("Open the start page", href="/", className="small-button"),
+    ])
+
+
+def dataset_summary(summary: dict) -> list:
+    rows = [
+        ("File", summary.get("filename")),
+        ("Samples (rows)", summary.get("rows")),
+        ("Numeric variables", summary.get("numeric")),
+        ("Text columns", summary.get("text")),
+        ("Sample labels from", summary.get("id_column") or "row numbers"),
+        ("Possible groups", ", ".join(summary.get("groups", ())) or "none found"),
+        ("Missing numeric cells", summary.get("missing")),
+        ("Read as", summary.get("format")),
+    ]
+    table = html.Table(className="summary-table", children=[
+        html.Tbody([html.Tr([html.Th(name), html.Td(str(value))]) for name, value in rows])
+    ])
+    warnings = summary.get("warnings", ())
+    notes = [html.Ul([html.Li(text) for text in warnings], className="ingest-warnings")] if warnings else []
+    return [table, *notes]
+
+
+def transform_chips(transforms) -> list:
+    return [
+        html.Li(className="chip", children=[
+            html.Span(f"{transform}({variable})"),
+            html.Button("×", id={"type": "remove-transform", "index": variable}, n_clicks=0,
+                        className="chip-remove", title=f"Remove the {transform} transform of {variable}"),
+        ])
+        for variable, transform in transforms
+    ]
+
+
+def excluded_chips(labels) -> list:
+    if not labels:
+        return [html.Li("None: every sample is in the model.", className="chip-empty")]
+    return [
+        html.Li(className="chip", children=[
+            html.Span(label),
+            html.Button("↺", id={"type": "restore-sample", "index": label}, n_clicks=0,
+                        className="chip-remove", title=f"Put {label} back into the model"),
+        ])
+        for label in labels
+    ]
+
+
+def variance_table(rows: list[dict]) -> html.Table:
+    head = html.Thead(html.Tr([
+        html.Th("PC"), html.Th("Eigenvalue"), html.Th("% variance"), html.Th("Cumulative %"),
+        html.Th("Kaiser", title="Eigenvalue above the mean eigenvalue"),
+        html.Th("Broken stick", title="Share above the broken-stick expectation"),
+        html.Th("Parallel", title="Eigenvalue above the 95th percentile of permuted data"),
+    ]))
+    body = html.Tbody([
+        html.Tr(className="kept" if row["kept"] else "", children=[
+            html.Td(row["pc"]),
+            html.Td(f"{row['eigenvalue']:.4f}", className="num"),
+            html.Td(f"{row['percent']:.2f}", className="num"),
+            html.Td(f"{row['cumulative']:.2f}", className="num"),
+            html.Td(_verdict(row["kaiser"]), className="verdict"),
+            html.Td(_verdict(row["broken_stick"]), className="verdict"),
+            html.Td(_verdict(row["parallel"]), className="verdict"),
+        ])
+        for row in rows
+    ])
+    return html.Table([head, body], className="variance-table", id="variance-table-element")
+
+
+def _verdict(value) -> str:
+    if value is None:
+        return "–"
+    return "✓" if value else ""
+
+
+def flagged_table(rows: list[dict]) -> list:
+    if not rows:
+        return [html.P("No sample is above either limit at this confidence.", className="quiet")]
+    return [
+        html.H3(f"{len(rows)} sample(s) above a limit"),
+        html.Table(className="flagged-table", children=[
+            html.Thead(html.Tr([html.Th("Sample"), html.Th("T²"), html.Th("Q"), html.Th("Above")])),
+            html.Tbody([
+                html.Tr([
+                    html.Td(row["label"]),
+                    html.Td(f"{row['t2']:.3g}", className="num"),
+                    html.Td(f"{row['q']:.3g}", className="num"),
+                    html.Td(" ".join(name for name, over in (("T²", row["over_t2"]), ("Q", row["over_q"])) if over)),
+                ])
+                for row in rows
+            ]),
+        ]),
+    ]
+
+
+def provenance_block(provenance: dict) -> html.Dl:
+    items = []
+    for name, value in provenance.items():
+        items += [html.Dt(name), html.Dd(str(value))]
+    return html.Dl(items, className="provenance")

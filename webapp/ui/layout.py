@@ -1,0 +1,293 @@
+"""The page: a recipe rail on the left, four analysis cards on the right.
+
+Only structure lives here; values and options are filled by callbacks from the
+URL (see :mod:`webapp.ui.callbacks`). Component ids are the module constants
+below so callbacks and tests never spell them twice.
+"""
+
+from __future__ import annotations
+
+from dash import dcc, html
+
+from webapp.figures import GRAPH_CONFIG
+from webapp.state import BIPLOT_SCALINGS, CENTRINGS, MISSING_POLICIES, SCALINGS, TRANSFORMS
+
+URL = "url"
+UPLOAD_RESULT = "upload-result"
+NOTICES = "notices"
+DATASET_TITLE = "dataset-title"
+DATASET_SUMMARY = "dataset-summary"
+NOT_FOUND = "not-found"
+WORKSPACE = "workspace"
+LINK_TEXT = "link-text"
+COPY_LINK = "copy-link"
+
+ID_COLUMN = "id-column"
+COLOUR_BY = "colour-by"
+VARIABLES = "variables"
+VARIABLES_ALL = "variables-all"
+TRANSFORM_VARIABLE = "transform-variable"
+TRANSFORM_KIND = "transform-kind"
+TRANSFORM_LIST = "transform-list"
+TRANSFORM_APPLY = "transform-apply"
+MISSING = "missing"
+CENTRING = "centring"
+SCALING = "scaling"
+EXCLUDED_LIST = "excluded-list"
+RESTORE_ALL = "restore-all"
+RECIPE_WORDS = "recipe-words"
+
+PC_X = "pc-x"
+PC_Y = "pc-y"
+SIGMA_LEVELS = "sigma-levels"
+ELLIPSE_BY = "ellipse-by"
+OVERLAYS = "overlays"
+BIPLOT_SCALING = "biplot-scaling"
+SCORES_GRAPH = "scores-graph"
+SELECTION_BAR = "selection-bar"
+EXCLUDE_SELECTED = "exclude-selected"
+
+COMPONENTS = "components"
+COMPONENT_ADVICE = "component-advice"
+VARIANCE_TABLE = "variance-table"
+VARIANCE_GRAPH = "variance-graph"
+COPY_TABLE = "copy-table"
+DOWNLOAD_TABLE = "download-table-button"
+TABLE_DOWNLOAD = "table-download"
+
+CONFIDENCE = "confidence"
+DIAGNOSTICS_GRAPH = "diagnostics-graph"
+FLAGGED_LIST = "flagged-list"
+CONTRIBUTIONS = "contributions"
+
+LOADING_PC = "loading-pc"
+LOADINGS_GRAPH = "loadings-graph"
+CIRCLE_GRAPH = "circle-graph"
+PROVENANCE = "provenance"
+
+CONFIDENCE_CHOICES = (0.9, 0.95, 0.99, 0.999)
+_WORDS = {
+    "drop": "Leave samples out",
+    "mean": "Fill with the mean",
+    "iterative": "Fill by iterative PCA",
+    "unit": "Unit variance (autoscaling)",
+    "none": "None",
+    "pareto": "Pareto",
+    "range": "Range",
+    "mean_centre": "Mean-centre",
+    "correlation": "Correlation biplot",
+    "distance": "Distance biplot",
+}
+
+
+# The file input lives in the page template, outside React's tree, so a
+# re-render never replaces it while a file is being chosen (see app.py).
+FILE_INPUT_HTML = (
+    '<input type="file" id="upload-input" class="visually-hidden" tabindex="-1" '
+    'accept=".csv,.tsv,.txt,text/csv,text/tab-separated-values">'
+)
+
+
+def build_layout(config) -> html.Div:
+    return html.Div(
+        className="ordinate",
+        children=[
+            dcc.Location(id=URL, refresh=False),
+            dcc.Store(id=UPLOAD_RESULT),
+            _top_bar(config),
+            html.Div(id=NOTICES, className="notices", role="status", **{"aria-live": "polite"}),
+            html.Div(id=NOT_FOUND, className="not-found", hidden=True),
+            html.Div(id=WORKSPACE, className="workspace", children=[_recipe_rail(), _cards()]),
+        ],
+    )
+
+
+def _top_bar(config) -> html.Header:
+    limit = f"{config.max_upload_mb:g}"
+    return html.Header(
+        className="top-bar",
+        children=[
+            html.A("Ordinate", href="/", className="wordmark", title="Start page"),
+            html.Div(className="dataset-heading", children=[
+                html.H1(id=DATASET_TITLE, className="dataset-title"),
+                html.Details(className="dataset-summary", children=[
+                    html.Summary("About this data"),
+                    html.Div(id=DATASET_SUMMARY),
+                ]),
+            ]),
+            html.Label(
+                id="upload-zone",
+                className="upload-zone",
+                htmlFor="upload-input",
+                tabIndex="0",
+                role="button",
+                title=f"Drop a CSV or TSV file here, or press to choose one (up to {limit} MB)",
+                **{"data-limit-mb": limit},
+                children=[
+                    html.Span("Load a CSV", className="upload-label"),
+                    html.Span(f"drop or choose · up to {limit} MB", className="upload-hint"),
+                    html.Div(className="upload-progress", children=html.Div(id="upload-progress-bar")),
+                ],
+            ),
+            html.Div(id="upload-status", className="upload-status", role="status", **{"aria-live": "polite"}),
+            html.Div(className="share", children=[
+                dcc.Input(id=LINK_TEXT, readOnly=True, className="link-text", **{"aria-label": "Link to this view"}),
+                dcc.Clipboard(id=COPY_LINK, target_id=LINK_TEXT, title="Copy the link to this view",
+                              className="copy-button"),
+            ]),
+        ],
+    )
+
+
+def _recipe_rail() -> html.Aside:
+    return html.Aside(
+        className="recipe-rail",
+        **{"aria-label": "Preprocessing recipe"},
+        children=[
+            html.H2("Recipe"),
+            html.P(id=RECIPE_WORDS, className="recipe-words"),
+            _field("Sample labels", dcc.Dropdown(id=ID_COLUMN, clearable=False)),
+            _field("Colour by", dcc.Dropdown(id=COLOUR_BY, clearable=False)),
+            html.Fieldset(className="field", children=[
+                html.Legend("Variables in the model"),
+                html.Button("All", id=VARIABLES_ALL, className="small-button", n_clicks=0),
+                dcc.Checklist(id=VARIABLES, className="variable-list", inputClassName="check"),
+            ]),
+            html.Fieldset(className="field", children=[
+                html.Legend("Transform a variable"),
+                dcc.Dropdown(id=TRANSFORM_VARIABLE, placeholder="variable…"),
+                dcc.Dropdown(id=TRANSFORM_KIND, options=[{"label": t, "value": t} for t in TRANSFORMS],
+                             value="log10", clearable=False),
+                html.Button("Apply", id=TRANSFORM_APPLY, className="small-button", n_clicks=0),
+                html.Ul(id=TRANSFORM_LIST, className="chip-list"),
+            ]),
+            _radio_field("Missing values", MISSING, MISSING_POLICIES),
+            _radio_field("Centring", CENTRING, CENTRINGS, words={"mean": "Mean-centre", "none": "None"}),
+            _radio_field("Scaling", SCALING, SCALINGS),
+            html.Fieldset(className="field", children=[
+                html.Legend("Samples left out"),
+                html.Ul(id=EXCLUDED_LIST, className="chip-list"),
+                html.Button("Restore all", id=RESTORE_ALL, className="small-button", n_clicks=0),
+            ]),
+        ],
+    )
+
+
+def _cards() -> html.Main:
+    return html.Main(className="cards", children=[
+        _scores_card(), _variance_card(), _diagnostics_card(), _loadings_card(),
+        html.Section(className="card provenance-card", children=[
+            html.H2("Provenance"), html.Div(id=PROVENANCE),
+        ]),
+    ])
+
+
+def _scores_card() -> html.Section:
+    return html.Section(className="card scores-card", children=[
+        html.Div(className="card-head", children=[
+            html.H2("Scores and biplot"),
+            html.Div(className="toolbar", children=[
+                _inline("x", dcc.Dropdown(id=PC_X, clearable=False, className="pc-select")),
+                _inline("y", dcc.Dropdown(id=PC_Y, clearable=False, className="pc-select")),
+                _inline("σ levels", dcc.Input(id=SIGMA_LEVELS, type="text", debounce=True, className="sigma-input",
+                                              placeholder="e.g. 1, 2, 3")),
+                _inline("ellipses", dcc.RadioItems(id=ELLIPSE_BY, inline=True, options=[
+                    {"label": "per group", "value": "group"}, {"label": "all samples", "value": "all"}])),
+                dcc.Checklist(id=OVERLAYS, inline=True, options=[
+                    {"label": "loadings arrows", "value": "arrows"},
+                    {"label": "T² ellipse", "value": "hotelling"},
+                    {"label": "sample labels", "value": "labels"},
+                ]),
+                dcc.RadioItems(id=BIPLOT_SCALING, inline=True, options=[
+                    {"label": _WORDS[s], "value": s} for s in BIPLOT_SCALINGS]),
+            ]),
+        ]),
+        _graph(SCORES_GRAPH, "scores-graph"),
+        html.Div(id=SELECTION_BAR, className="selection-bar", children=[
+            html.Span("Click a point to inspect it; draw a lasso or box to select several."),
+            html.Button("Leave selected samples out", id=EXCLUDE_SELECTED, n_clicks=0, className="small-button"),
+        ]),
+    ])
+
+
+def _variance_card() -> html.Section:
+    return html.Section(className="card variance-card", children=[
+        html.Div(className="card-head", children=[
+            html.H2("Variance explained"),
+            html.Div(className="toolbar", children=[
+                _inline("components kept (K)", dcc.Dropdown(id=COMPONENTS, clearable=False, className="k-select")),
+                dcc.Clipboard(id=COPY_TABLE, title="Copy the table (tab separated)", className="copy-button"),
+                html.Button("Download CSV", id=DOWNLOAD_TABLE, n_clicks=0, className="small-button"),
+                dcc.Download(id=TABLE_DOWNLOAD),
+            ]),
+        ]),
+        html.P(id=COMPONENT_ADVICE, className="advice"),
+        html.Div(className="variance-body", children=[
+            html.Div(id=VARIANCE_TABLE, className="table-wrap"),
+            _graph(VARIANCE_GRAPH, "variance-graph"),
+        ]),
+    ])
+
+
+def _diagnostics_card() -> html.Section:
+    return html.Section(className="card diagnostics-card", children=[
+        html.Div(className="card-head", children=[
+            html.H2("Outlier diagnostics"),
+            html.Div(className="toolbar", children=[
+                _inline("confidence", dcc.Dropdown(id=CONFIDENCE, clearable=False, className="conf-select",
+                                                   options=[{"label": f"{c * 100:g} %", "value": c} for c in CONFIDENCE_CHOICES])),
+            ]),
+        ]),
+        html.P(className="caution", children=(
+            "Flags are statistical evidence under the model's assumptions (samples resembling the reference set, "
+            "roughly normal scores). They are not a release or rejection decision: follow your validated local "
+            "procedures and confirm with the measurements themselves."
+        )),
+        html.Div(className="diagnostics-body", children=[
+            _graph(DIAGNOSTICS_GRAPH, "diagnostics-graph"),
+            html.Div(id=FLAGGED_LIST, className="flagged-list"),
+        ]),
+        html.Div(id=CONTRIBUTIONS, className="contributions"),
+    ])
+
+
+def _loadings_card() -> html.Section:
+    return html.Section(className="card loadings-card", children=[
+        html.Div(className="card-head", children=[
+            html.H2("Loadings"),
+            html.Div(className="toolbar", children=[
+                _inline("component", dcc.Dropdown(id=LOADING_PC, clearable=False, className="pc-select")),
+            ]),
+        ]),
+        html.Div(className="loadings-body", children=[
+            _graph(LOADINGS_GRAPH, "loadings-graph"),
+            _graph(CIRCLE_GRAPH, "circle-graph"),
+        ]),
+    ])
+
+
+# --- small builders ------------------------------------------------------------
+
+
+def _graph(graph_id: str, class_name: str) -> dcc.Loading:
+    return dcc.Loading(
+        type="dot",
+        delay_show=400,
+        children=dcc.Graph(id=graph_id, className=class_name, config=GRAPH_CONFIG),
+    )
+
+
+def _field(label: str, control) -> html.Div:
+    return html.Div(className="field", children=[html.Label(label, className="field-label"), control])
+
+
+def _inline(label: str, control) -> html.Label:
+    return html.Label(className="inline-field", children=[html.Span(label), control])
+
+
+def _radio_field(label: str, control_id: str, choices, words=None) -> html.Fieldset:
+    words = {**_WORDS, **(words or {})}
+    return html.Fieldset(className="field", children=[
+        html.Legend(label),
+        dcc.RadioItems(id=control_id, options=[{"label": words.get(c, c), "value": c} for c in choices]),
+    ])

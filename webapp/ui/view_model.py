@@ -1,0 +1,458 @@
+"""From a view state to everything the page shows, with no Dash involved.
+
+``build_view(services, state)`` resolves the dataset, asks the cached compute
+layer for the fit (never fitting twice for the same data and recipe), derives
+the cheap diagnostics, and calls the pure figure builders. Callbacks only
+unpack the result, so this module is where the app's behaviour is tested.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import plotly.graph_objects as go
+
+from webapp import __version__
+from webapp.analysis import ENGINE_VERSION
+from webapp.analysis.diagnostics import q_residual_row, t2_contributions
+from webapp.analysis.ellipses import hotelling_ellipse, try_sigma_ellipse
+from webapp.analysis.errors import OrdinateError
+from webapp.analysis.recipe import Recipe
+from webapp.figures import (
+    axis_title,
+    contributions_figure,
+    correlation_circle_figure,
+    diagnostics_figure,
+    flagged_samples,
+    loading_arrows,
+    loadings_bar_figure,
+    scores_figure,
+    variance_figure,
+    variance_table_csv,
+    variance_table_rows,
+    variance_table_tsv,
+)
+from webapp.state import NO_COLOUR, MAX_SIGMA, MAX_SIGMA_LEVELS, ViewState
+
+HOVER_VARIABLES = 6
+MAX_TABLE_COMPONENTS = 20
+
+
+class DatasetNotFound(Exception):
+    """The URL names no dataset this server knows."""
+
+
+@dataclass(frozen=True)
+class Controls:
+    id_options: list
+    colour_options: list
+    variable_options: list
+    variables_in: list
+    pc_options: list
+    component_options: list
+
+
+@dataclass(frozen=True, eq=False)
+class View:
+    state: ViewState
+    title: str
+    summary: dict
+    notices: tuple[str, ...]
+    errors: tuple[str, ...]
+    recipe_words: tuple[str, ...]
+    controls: Controls
+    pc_x: int = 1
+    pc_y: int = 2
+    loading_pc: int = 1
+    scores_figure: go.Figure = field(default_factory=go.Figure)
+    variance_rows: list = field(default_factory=list)
+    variance_figure: go.Figure = field(default_factory=go.Figure)
+    variance_tsv: str = ""
+    advice_text: str = ""
+    diagnostics_figure: go.Figure = field(default_factory=go.Figure)
+    flagged: list = field(default_factory=list)
+    contributions: object = None
+    loadings_figure: go.Figure = field(default_factory=go.Figure)
+    circle_figure: go.Figure = field(default_factory=go.Figure)
+    provenance: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True, eq=False)
+class Resolved:
+    """The dataset, its parsed table and the fitted recipe a state points at."""
+
+    record: object
+    table: object
+    recipe: Recipe
+    fitted: object
+    notices: tuple[str, ...]
+
+
+def resolve(services, state: ViewState) -> Resolved:
+    record = services.store.dataset(state.dataset)
+    if record is None:
+        raise DatasetNotFound(state.dataset)
+    table = services.compute.table(record)
+    recipe, notices = recipe_for(state, table)
+    fitted = services.compute.fitted(record, recipe)
+    return Resolved(record, table, recipe, fitted, notices)
+
+
+def recipe_for(state: ViewState, table) -> tuple[Recipe, tuple[str, ...]]:
+    """The engine's recipe for a view state, ignoring names the data lack."""
+    notices = []
+    columns = set(table.frame.columns)
+    id_column = state.id_column
+    if id_column is not None and id_column not in columns:
+        notices.append(f"The link names a label column '{id_column}' that this data lacks; using the detected one.")
+        id_column = None
+    label_column = id_column or table.id_column
+    numeric = [c for c in table.numeric_columns if c != label_column]
+    unknown = [v for v in state.variables_off if v not in numeric]
+    if unknown:
+        notices.append(f"Ignored unknown variable(s) in the link: {', '.join(unknown)}.")
+    off = set(state.variables_off)
+    variables = None if not off else tuple(v for v in numeric if v not in off)
+    transforms = tuple((v, t) for v, t in state.transforms if v in numeric)
+    if len(transforms) < len(state.transforms):
+        notices.append("Ignored transforms of variables this data lacks.")
+    recipe = Recipe(
+        variables=variables,
+        excluded_samples=state.excluded,
+        transforms=transforms,
+        missing=state.missing,
+        centring=state.centring,
+        scaling=state.scaling,
+        id_column=id_column,
+    )
+    return recipe, tuple(notices)
+
+
+def build_view(services, state: ViewState, parse_notices=()) -> View:
+    record = services.store.dataset(state.dataset)
+    if record is None:
+        raise DatasetNotFound(state.dataset)
+    try:
+        table = services.compute.table(record)
+    except OrdinateError as error:
+        return _failed_view(state, record, None, parse_notices, error)
+    summary = table_summary(record, table)
+    try:
+        resolved = resolve(services, state)
+    except OrdinateError as error:
+        return _failed_view(state, record, table, parse_notices, error, summary)
+    return _full_view(state, resolved, summary, tuple(parse_notices))
+
+
+def _full_view(state: ViewState, resolved: Resolved, summary: dict, parse_notices) -> View:
+    fitted, table = resolved.fitted, resolved.table
+    pca = fitted.pca
+    notices = list(parse_notices) + list(resolved.notices) + list(fitted.warnings)
+    k_max = pca.n_components
+    pc_x, pc_y, loading_pc = (_clamp_pc(v, k_max, name, notices) for v, name in (
+        (state.pc_x, "x axis"), (state.pc_y, "y axis"), (state.loading_pc, "loadings")))
+    components = _components_choice(state, fitted, notices)
+    diagnostics = _diagnose(fitted, components, state.confidence)
+    groups, colour_column = _groups(state, table, fitted)
+    scores = _scores_panel(state, fitted, table, groups, pc_x, pc_y)
+    rows = variance_table_rows(
+        pca.eigenvalues[:MAX_TABLE_COMPONENTS], pca.explained_variance_ratio[:MAX_TABLE_COMPONENTS],
+        pca.cumulative_explained[:MAX_TABLE_COMPONENTS], kaiser=fitted.advice.kaiser,
+        broken_stick=fitted.advice.broken_stick, parallel=fitted.advice.parallel, components=diagnostics.components,
+    )
+    return View(
+        state=state,
+        title=resolved.record.display_name,
+        summary=summary,
+        notices=tuple(notices),
+        errors=(),
+        recipe_words=tuple(resolved.recipe.describe()),
+        controls=_controls(table, fitted, resolved.recipe),
+        pc_x=pc_x,
+        pc_y=pc_y,
+        loading_pc=loading_pc,
+        scores_figure=scores,
+        variance_rows=rows,
+        variance_figure=variance_figure(
+            eigenvalues=pca.eigenvalues, explained_ratio=pca.explained_variance_ratio,
+            cumulative=pca.cumulative_explained, broken_stick=fitted.advice.broken_stick_expectation,
+            parallel_threshold=fitted.advice.parallel_threshold, mean_eigenvalue=pca.total_variance / pca.n_variables,
+            components=diagnostics.components, total_variance=pca.total_variance,
+        ),
+        variance_tsv=variance_table_tsv(rows),
+        advice_text=advice_text(fitted.advice, diagnostics.components, state.components is None),
+        diagnostics_figure=diagnostics_figure(
+            t2=diagnostics.t2, q=diagnostics.q, labels=np.asarray(fitted.prepared.sample_labels, dtype=object),
+            groups=groups, t2_limit=diagnostics.t2_limit, q_limit=diagnostics.q_limit,
+            confidence=diagnostics.confidence, highlighted=state.picked,
+        ),
+        flagged=flagged_samples(fitted.prepared.sample_labels, diagnostics.t2, diagnostics.q,
+                                diagnostics.t2_limit, diagnostics.q_limit),
+        contributions=_contributions(state, fitted, diagnostics),
+        loadings_figure=loadings_bar_figure(
+            variables=fitted.prepared.variables, loadings=pca.loadings[:, loading_pc - 1], component=loading_pc,
+            explained_ratio=float(pca.explained_variance_ratio[loading_pc - 1]),
+        ),
+        circle_figure=_circle(fitted, pc_x, pc_y),
+        provenance=provenance(resolved, diagnostics, colour_column),
+    )
+
+
+def _failed_view(state, record, table, notices, error, summary=None) -> View:
+    controls = _controls(table, None, None) if table is not None else Controls([], [], [], [], [], [])
+    return View(
+        state=state,
+        title=record.display_name,
+        summary=summary or {"filename": record.filename},
+        notices=tuple(notices),
+        errors=(str(error),),
+        recipe_words=(),
+        controls=controls,
+    )
+
+
+# --- pieces -----------------------------------------------------------------------
+
+
+def table_summary(record, table) -> dict:
+    return {
+        "filename": record.filename,
+        "rows": table.n_rows,
+        "numeric": len(table.numeric_columns),
+        "text": len(table.text_columns),
+        "id_column": table.id_column,
+        "groups": list(table.group_columns),
+        "missing": int(sum(dict(table.missing_counts).values())),
+        "format": f"delimiter {_delimiter_name(table.delimiter)}, decimal '{table.decimal}', {table.encoding}",
+        "warnings": list(table.warnings),
+    }
+
+
+def _delimiter_name(delimiter: str) -> str:
+    return {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}.get(delimiter, repr(delimiter))
+
+
+def _controls(table, fitted, recipe) -> Controls:
+    id_options = [{"label": "detected" + (f" ({table.id_column})" if table.id_column else " (row numbers)"),
+                   "value": "auto"}]
+    id_options += [{"label": c, "value": c} for c in table.frame.columns]
+    colour_options = [{"label": "detected group", "value": "auto"}, {"label": "no colouring", "value": "__none__"}]
+    colour_options += [{"label": c, "value": c} for c in table.frame.columns]
+    label_column = (recipe.id_column if recipe else None) or table.id_column
+    numeric = [c for c in table.numeric_columns if c != label_column]
+    chosen = set(recipe.variables) if recipe and recipe.variables is not None else set(numeric)
+    pcs = fitted.pca.n_components if fitted else 0
+    return Controls(
+        id_options=id_options,
+        colour_options=colour_options,
+        variable_options=[{"label": c, "value": c} for c in numeric],
+        variables_in=[c for c in numeric if c in chosen],
+        pc_options=[{"label": f"PC{a}", "value": a} for a in range(1, pcs + 1)],
+        component_options=[{"label": "recommended", "value": "auto"}]
+        + [{"label": str(a), "value": a} for a in range(1, pcs + 1)],
+    )
+
+
+def _clamp_pc(value: int, available: int, where: str, notices: list) -> int:
+    if value <= available:
+        return value
+    notices.append(f"This data has {available} components; the {where} shows PC{available} instead of PC{value}.")
+    return available
+
+
+def _components_choice(state: ViewState, fitted, notices: list):
+    if state.components is None:
+        return "auto"
+    available = fitted.pca.n_components
+    if state.components > available:
+        notices.append(f"K = {state.components} is more than the {available} components available; using {available}.")
+        return available
+    return state.components
+
+
+def _diagnose(fitted, components, confidence):
+    from webapp.analysis.pipeline import diagnose
+
+    return diagnose(fitted, components, confidence)
+
+
+def _groups(state: ViewState, table, fitted):
+    column = state.colour_by
+    if column is None:
+        column = table.group_columns[0] if table.group_columns else None
+    if not column or column == NO_COLOUR or column not in table.frame.columns:
+        return None, None
+    values = table.frame[column].to_numpy()[fitted.prepared.row_positions]
+    text = np.array([_group_text(v) for v in values], dtype=object)
+    return text, column
+
+
+def _group_text(value) -> str | None:
+    if value is None or (isinstance(value, float) and np.isnan(value)):
+        return None
+    if isinstance(value, float) and value.is_integer():
+        return str(int(value))
+    return str(value)
+
+
+def _scores_panel(state: ViewState, fitted, table, groups, pc_x: int, pc_y: int) -> go.Figure:
+    pca, prepared = fitted.pca, fitted.prepared
+    x, y = pca.scores[:, pc_x - 1], pca.scores[:, pc_y - 1]
+    ratios = pca.explained_variance_ratio
+    ellipses, owners = _sigma_ellipses(state, x, y, groups)
+    if state.hotelling:
+        ellipse = hotelling_ellipse(float(pca.eigenvalues[pc_x - 1]), float(pca.eigenvalues[pc_y - 1]),
+                                    pca.n_samples, state.confidence, scores=np.column_stack([x, y]))
+        ellipses.append(ellipse)
+        owners.append(None)
+    arrows = None
+    if state.arrows:
+        arrows = loading_arrows(
+            pca.loadings[:, [pc_x - 1, pc_y - 1]], prepared.variables,
+            pca.eigenvalues[[pc_x - 1, pc_y - 1]], state.biplot_scaling,
+            float(np.max(np.abs(np.concatenate([x, y])))) if x.size else 1.0,
+        )
+    hover = {v: table.frame[v].to_numpy()[prepared.row_positions] for v in prepared.variables[:HOVER_VARIABLES]}
+    return scores_figure(
+        x=x, y=y, labels=np.asarray(prepared.sample_labels, dtype=object), groups=groups,
+        x_title=axis_title(pc_x, float(ratios[pc_x - 1])), y_title=axis_title(pc_y, float(ratios[pc_y - 1])),
+        hover_values=hover, ellipses=ellipses, ellipse_groups=owners, arrows=arrows,
+        show_labels=state.labels, highlighted=state.picked,
+    )
+
+
+def _sigma_ellipses(state: ViewState, x, y, groups) -> tuple[list, list]:
+    points = np.column_stack([x, y])
+    sets = [(None, points)]
+    if state.ellipse_by == "group" and groups is not None:
+        names = [g for g in dict.fromkeys(groups.tolist()) if g is not None]
+        sets = [(name, points[groups == name]) for name in names]
+    ellipses, owners = [], []
+    for owner, subset in sets:
+        for level in state.sigma_levels:
+            ellipse = try_sigma_ellipse(subset, level)
+            if ellipse is not None:
+                ellipses.append(ellipse)
+                owners.append(owner)
+    return ellipses, owners
+
+
+def _contributions(state: ViewState, fitted, diagnostics):
+    if state.picked is None:
+        return None
+    labels = fitted.prepared.sample_labels
+    if state.picked not in labels:
+        return None
+    from dash import dcc, html  # components only, no callbacks: keeps this module importable in tests
+
+    from webapp.figures import GRAPH_CONFIG
+
+    row = labels.index(state.picked)
+    k = diagnostics.components
+    x_row = fitted.prepared.matrix[row]
+    loadings = fitted.pca.loadings[:, :k]
+    figure = contributions_figure(
+        variables=fitted.prepared.variables,
+        t2_contributions=t2_contributions(x_row, loadings, fitted.pca.eigenvalues[:k]),
+        q_residuals=q_residual_row(x_row, loadings),
+        label=state.picked,
+    )
+    return html.Div([
+        html.Div(className="contributions-head", children=[
+            html.H3(f"What drives sample {state.picked}"),
+            html.Span(f"T² {diagnostics.t2[row]:.3g} (limit {diagnostics.t2_limit:.3g}) · "
+                      f"Q {diagnostics.q[row]:.3g} (limit {diagnostics.q_limit:.3g})"),
+            html.Button("Leave this sample out", id={"type": "exclude-picked", "index": 0}, n_clicks=0,
+                        className="small-button"),
+        ]),
+        dcc.Graph(figure=figure, config=GRAPH_CONFIG, className="contributions-graph"),
+    ])
+
+
+def _circle(fitted, pc_x: int, pc_y: int) -> go.Figure:
+    correlations = variable_correlations(fitted)
+    ratios = fitted.pca.explained_variance_ratio
+    return correlation_circle_figure(
+        variables=fitted.prepared.variables,
+        correlations_x=correlations[:, pc_x - 1], correlations_y=correlations[:, pc_y - 1],
+        x_title=axis_title(pc_x, float(ratios[pc_x - 1])), y_title=axis_title(pc_y, float(ratios[pc_y - 1])),
+    )
+
+
+def variable_correlations(fitted) -> np.ndarray:
+    """Correlation of each preprocessed variable with each component's scores.
+
+    r_ja = p_ja · sqrt(λ_a) / s_j, with s_j the variable's standard deviation
+    after preprocessing (1 under autoscaling).
+    """
+    pca = fitted.pca
+    spread = fitted.prepared.matrix.std(axis=0, ddof=1)
+    spread = np.where(spread > 0, spread, 1.0)
+    k = pca.n_components
+    return pca.loadings * np.sqrt(pca.eigenvalues[:k]) / spread[:, None]
+
+
+def advice_text(advice, components: int, automatic: bool) -> str:
+    parallel = "not run" if advice.parallel is None else str(advice.parallel)
+    chosen = "the recommendation" if automatic else "your choice"
+    return (
+        f"Recommended K = {advice.recommended} by {advice.rule}. Other rules: Kaiser {advice.kaiser}, "
+        f"broken stick {advice.broken_stick}, parallel analysis {parallel}, "
+        f"{advice.cumulative_threshold:.0%} cumulative {advice.cumulative}. "
+        f"T² and Q use K = {components} ({chosen})."
+    )
+
+
+def provenance(resolved: Resolved, diagnostics, colour_column) -> dict:
+    record, fitted = resolved.record, resolved.fitted
+    return {
+        "Dataset": record.display_name,
+        "Fingerprint (SHA-256)": record.content_hash,
+        "Samples used": f"{fitted.pca.n_samples} of {resolved.table.n_rows}",
+        "Variables used": f"{fitted.pca.n_variables}: {', '.join(fitted.prepared.variables)}",
+        "Recipe": " ".join(resolved.recipe.describe()),
+        "Solver": fitted.pca.solver,
+        "Components for T² and Q": f"{diagnostics.components} at {diagnostics.confidence:.1%} confidence",
+        "Q limit": diagnostics.q_limit_method,
+        "Coloured by": colour_column or "nothing",
+        "Engine": f"Ordinate {__version__}, engine {ENGINE_VERSION}",
+    }
+
+
+def parse_sigma_levels(text, fallback: tuple[float, ...]) -> tuple[float, ...]:
+    """Sigma levels typed by a user ("1, 2, 3"); the fallback when unreadable."""
+    if text is None:
+        return fallback
+    try:
+        levels = sorted({float(part) for part in str(text).replace(";", ",").split(",") if part.strip()})
+    except ValueError:
+        return fallback
+    if any(not 0 < level <= MAX_SIGMA for level in levels) or len(levels) > MAX_SIGMA_LEVELS:
+        return fallback
+    return tuple(levels)
+
+
+def labels_from_event(event) -> list[str]:
+    """Sample labels of clicked or selected points (label is customdata[0])."""
+    labels = []
+    for point in (event or {}).get("points", ()):
+        data = point.get("customdata")
+        if isinstance(data, list) and data:
+            data = data[0]
+        if isinstance(data, str):
+            labels.append(data)
+    return list(dict.fromkeys(labels))
+
+
+def variance_csv(services, state: ViewState) -> tuple[str, str]:
+    resolved = resolve(services, state)
+    pca, advice = resolved.fitted.pca, resolved.fitted.advice
+    diagnostics = _diagnose(resolved.fitted, state.components or "auto", state.confidence)
+    rows = variance_table_rows(
+        pca.eigenvalues, pca.explained_variance_ratio, pca.cumulative_explained,
+        kaiser=advice.kaiser, broken_stick=advice.broken_stick, parallel=advice.parallel,
+        components=diagnostics.components,
+    )
+    stem = resolved.record.filename.rsplit(".", 1)[0] or "data"
+    return variance_table_csv(rows), f"{stem}-variance-explained.csv"
