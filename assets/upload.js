@@ -106,6 +106,16 @@
         return (bytes / BYTES_PER_MB).toFixed(1);
     }
 
+    function formatSize(bytes) {
+        if (bytes < 1024) {
+            return bytes + " bytes";
+        }
+        if (bytes < 0.1 * BYTES_PER_MB) {
+            return (bytes / 1024).toFixed(1) + " KB";
+        }
+        return formatMb(bytes) + " MB";
+    }
+
     function formatLimit(mb) {
         // Like Python's "%g": 50 -> "50", 0.5 -> "0.5".
         return String(Number(mb.toPrecision(6)));
@@ -278,7 +288,7 @@
                 hideProgress();
                 var published = publish({ token: body.token, summary: body.summary || {} });
                 if (published) {
-                    showStatus("Received “" + file.name + "” (" + totalMb + " MB).", false);
+                    showStatus("Received “" + file.name + "” (" + formatSize(file.size) + ").", false);
                 } else {
                     showStatus("The file was received, but the page is not ready to show it. Reload the page and add the file again.", true);
                 }

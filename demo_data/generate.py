@@ -183,7 +183,9 @@ def _batch_table(
     for j, prop in enumerate(PROPERTIES):
         values[:, j] = np.round(values[:, j], prop[1])
     table = pd.DataFrame(values, columns=list(MEASURED))
-    table.insert(0, "week", weeks.astype(int))
+    # Written as text ("2024-W07"): a time stamp, not a measurement, so it is
+    # not offered as a PCA variable.
+    table.insert(0, "week", [f"{year}-W{int(week):02d}" for week in weeks])
     table.insert(0, "line", lines)
     table.insert(0, "site", sites)
     table.insert(0, "batch_id", batch_ids)
@@ -238,8 +240,12 @@ def write(out_dir: Path | str | None = None, seed: int = SEED) -> tuple[Path, Pa
 
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description="Write Ordinate's synthetic demo data (invented oat dessert QC).")
-    parser.add_argument("--out-dir", type=Path, default=None, help="folder for the CSV files (default: next to this script)")
-    parser.add_argument("--seed", type=int, default=SEED, help=f"random seed (default {SEED}, which the shipped files use)")
+    parser.add_argument(
+        "--out-dir", type=Path, default=None, help="folder for the CSV files (default: next to this script)"
+    )
+    parser.add_argument(
+        "--seed", type=int, default=SEED, help=f"random seed (default {SEED}, which the shipped files use)"
+    )
     args = parser.parse_args(argv)
     for path in write(args.out_dir, args.seed):
         print(f"wrote {path}")

@@ -3,8 +3,8 @@
 The structure checks use scikit-learn's PCA and StandardScaler as the
 independent reference (not Ordinate's own engine), with Hotelling's T² as the
 sum of squared scores over their variances and Q as the squared residual
-distance (common practice; Jackson, "A User's Guide to Principal Components",
-1991, ch. 1-2).
+distance (common practice; as in Jackson, "A User's Guide to Principal
+Components", Wiley 1991 - reference cited from memory).
 """
 
 from __future__ import annotations
@@ -87,11 +87,13 @@ def test_shape_columns_and_groups(shipped):
     assert sorted(reference["site"].unique()) == sorted(gen.SITES)
     assert reference["site"].value_counts().to_dict() == {site: 60 for site in gen.SITES}
     assert (reference.groupby("site")["line"].nunique() == 2).all()
-    assert reference["week"].between(1, 52).all() and new["week"].between(1, 8).all()
+    week_number = {name: table["week"].str.extract(r"^20\d\d-W(\d\d)$")[0].astype(int)
+                   for name, table in (("reference", reference), ("new", new))}
+    assert week_number["reference"].between(1, 52).all() and week_number["new"].between(1, 8).all()
     for table, year in ((reference, "24"), (new, "25")):
         assert table["batch_id"].is_unique
         assert all(re.fullmatch(rf"OD-{year}-\d{{4}}", b) for b in table["batch_id"])
-        assert table["week"].is_monotonic_increasing  # numbered in production order
+        assert table["week"].is_monotonic_increasing  # numbered in production order (ISO-style text sorts)
     for column in gen.MEASURED:
         assert pd.api.types.is_float_dtype(reference[column]), column
 
@@ -152,7 +154,7 @@ def test_sites_overlap_and_separate_as_documented(reference_model):
     def distance(a: str, b: str) -> float:  # distance between site centres, in standard deviations of the scores
         return float(np.linalg.norm((centre.loc[a] - centre.loc[b]).to_numpy() / spread))
 
-    assert distance("Lindholm", "Brackwater") < 0.3  # overlap
+    assert distance("Lindholm", "Brackwater") < 0.2  # overlap
     for other in ("Lindholm", "Brackwater", "Tessin"):
         assert distance("Ostrava-Nord", other) > 1.5  # stands apart
     assert 0.4 < distance("Tessin", "Lindholm") < 1.5  # partly separated

@@ -483,7 +483,8 @@ def test_upgrade_steps_run_in_order_for_old_links(monkeypatch):
     monkeypatch.setattr(state_module, "PARAMETERS", future_parameters)
     monkeypatch.setattr(state_module, "_BY_NAME", {p.name: p for p in future_parameters})
 
-    assert parse_query("v=1&scale=pareto") == (ViewState(scaling="pareto"), ("This link uses an older format; it was updated.",))
+    upgraded = (ViewState(scaling="pareto"), ("This link uses an older format; it was updated.",))
+    assert parse_query("v=1&scale=pareto") == upgraded
     assert parse_query("scale=range")[0].scaling == "range"  # no `v` means format 1
     assert parse_query("v=2&scaling=none") == (ViewState(scaling="none"), ())
     assert to_query(ViewState(scaling="none")).startswith("v=2&")

@@ -22,7 +22,7 @@ from webapp.config import DEMO_TITLE, AppConfig
 from webapp.state import ViewState, to_query
 from webapp.storage import DataStore
 from webapp.ui.callbacks import register_callbacks
-from webapp.ui.layout import FILE_INPUT_HTML, build_layout
+from webapp.ui.layout import build_layout
 from webapp.ui.view_model import table_summary
 from webapp.upload import register_upload_route
 
@@ -54,7 +54,6 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
         suppress_callback_exceptions=True,
         update_title=None,
     )
-    app.index_string = _index_string()
     app.layout = build_layout(config)
     register_callbacks(app, services)
     register_upload_route(app.server, services.store, limit_bytes=config.max_upload_bytes,
@@ -91,27 +90,6 @@ def _register_start_page(app: dash.Dash, services: Services) -> None:
         if token and services.store.dataset(token):
             return redirect("/?" + to_query(ViewState(dataset=token)), code=302)
         return None
-
-
-def _index_string() -> str:
-    return """<!DOCTYPE html>
-<html lang="en">
-    <head>
-        {%metas%}
-        <title>{%title%}</title>
-        {%favicon%}
-        {%css%}
-    </head>
-    <body>
-        """ + FILE_INPUT_HTML + """
-        {%app_entry%}
-        <footer>
-            {%config%}
-            {%scripts%}
-            {%renderer%}
-        </footer>
-    </body>
-</html>"""
 
 
 __all__ = ["create_app", "create_services", "Services", "OrdinateError", "__version__"]

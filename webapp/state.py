@@ -43,10 +43,9 @@ Versioning: ``STATE_VERSION`` is the format that ``to_query`` writes (parameter
 from __future__ import annotations
 
 import dataclasses
-import math
 import numbers
 import re
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Any
 from urllib.parse import parse_qsl, quote, urlencode
@@ -189,7 +188,9 @@ def _check_transforms(values: Any) -> tuple[tuple[str, str], ...]:
         variable = _check_text(variable, "a transformed variable's name")
         transform = _check_choice(transform, TRANSFORMS, f"the transform of {variable!r}")
         if variable in chosen and chosen[variable] != transform:
-            raise ViewStateError(f"variable {variable!r} is given two transforms: {chosen[variable]!r} and {transform!r}.")
+            raise ViewStateError(
+                f"variable {variable!r} is given two transforms: {chosen[variable]!r} and {transform!r}."
+            )
         chosen[variable] = transform
     return tuple(sorted((v, t) for v, t in chosen.items() if t != "none"))
 
@@ -323,7 +324,7 @@ class UrlParameter:
 
     name: str  # the URL parameter
     field: str  # the ViewState field
-    effect: str  # "recipe" | "diagnostics" | "drawing" (documented in docs/url-state.md)
+    effect: str  # "data" | "recipe" | "diagnostics" | "drawing" (documented in docs/url-state.md)
     read: Callable[[str], Any]  # URL text -> field value; raises _Unusable
     write: Callable[[Any], str]  # field value -> URL text
     repeated: bool = False  # a list written as repeated parameters

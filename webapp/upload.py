@@ -71,6 +71,7 @@ __all__ = [
     "BYTES_PER_MB",
     "limit_bytes_from_mb",
     "too_large_message",
+    "SERVER_PROBLEM_MESSAGE",
     "register_upload_route",
 ]
 

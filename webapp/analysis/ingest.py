@@ -39,8 +39,8 @@ Sniffing (first 64 KB only, grown when the header row is longer)
       is the first non-blank record. A candidate scores the share of the
       following records that have exactly as many fields as the header; it
       needs at least two header fields. The highest share wins; ties go to the
-      larger field count, then to the ``filename`` hint (``.tsv``/``.tab`` mean
-      tab), then to the order tab, semicolon, comma, pipe.
+      ``filename`` hint (``.tsv``/``.tab`` mean tab), then to the larger field
+      count, then to the order tab, semicolon, comma, pipe.
     * Decimal mark: always ``.`` with a comma delimiter. Otherwise, if more
       sniffed data cells look like ``1,25`` than like ``1.25``, the decimal
       mark is ``,`` (European lab exports such as ``1,25;3,4``). Thousands
@@ -550,7 +550,7 @@ def _choose_delimiter(text: str, complete: bool, filename: str | None, subject: 
         n_fields = len(records[0].fields)
         rows = records[1:201]
         share = sum(len(r.fields) == n_fields for r in rows) / len(rows) if rows else 1.0
-        key = (share, n_fields, delimiter == hinted, -rank)
+        key = (share, delimiter == hinted, n_fields, -rank)
         if best_key is None or key > best_key:
             best_key, best = key, delimiter
     if best is None:
@@ -847,14 +847,14 @@ def _settle_column_types(
             numeric.append(name)
             continue
         _check_cell_lengths(series, name, max_cell_chars, locator, subject)
-        text, values, first_bad = _classify_text_column(series, decimal, name, notes)
+        text, values, stray = _classify_text_column(series, decimal, name, notes)
         if values is not None:
             parsed[position] = _finish_numeric(values, name, notes)
             numeric.append(name)
             continue
         parsed[position] = text
-        if first_bad is not None:
-            looks_numeric[name] = _describe_stray_cell(name, first_bad, text, locator, notes)
+        if stray is not None:
+            looks_numeric[name] = _describe_stray_cell(name, stray, text, locator, notes)
     return numeric, looks_numeric
 
 
@@ -942,13 +942,13 @@ def _check_cell_lengths(
 
 def _classify_text_column(
     series: pd.Series, decimal: str, name: str, notes: list[str]
-) -> tuple[pd.Series, np.ndarray | None, int | None]:
+) -> tuple[pd.Series, np.ndarray | None, tuple[int, int] | None]:
     """Decide whether a column pandas left as text is really numeric.
 
     Returns the trimmed text (missing markers as NaN); the float values when
     every filled cell is a number, else None; and, for a text column in which
     at least half the filled cells are numbers, the row index of the first
-    cell that is not.
+    cell that is not and the number of such cells.
     """
     text = series.astype("str").str.strip()
     missing = text.isna() | text.isin(MISSING_MARKERS)
@@ -976,18 +976,20 @@ def _classify_text_column(
         values[(~missing).to_numpy()] = parsed.to_numpy(dtype=np.float64)
         return text, values, None
     if not_number.mean() <= 0.5:
-        return text, None, int(not_number.idxmax())
+        return text, None, (int(not_number.idxmax()), int(not_number.sum()))
     return text, None, None
 
 
 def _describe_stray_cell(
-    name: str, row_index: int, text: pd.Series, locator: _LineLocator, notes: list[str]
+    name: str, stray: tuple[int, int], text: pd.Series, locator: _LineLocator, notes: list[str]
 ) -> str:
+    row_index, n_stray = stray
     value = str(text.iloc[row_index])
     shown = value if len(value) <= 40 else value[:37] + "..."
     where = f"row {row_index + 1} (line {locator.line_of_data_row(row_index)} of the file) reads '{shown}'"
+    others = f" ({n_stray} cells in all are not numbers)" if n_stray > 1 else ""
     notes.append(
-        f"Column '{name}' looks numeric but {where}; it is treated as text. "
+        f"Column '{name}' looks numeric but {where}{others}; it is treated as text. "
         "Fix or blank those cells to use it as a variable."
     )
     return where

@@ -80,14 +80,6 @@ _WORDS = {
 }
 
 
-# The file input lives in the page template, outside React's tree, so a
-# re-render never replaces it while a file is being chosen (see app.py).
-FILE_INPUT_HTML = (
-    '<input type="file" id="upload-input" class="visually-hidden" tabindex="-1" '
-    'accept=".csv,.tsv,.txt,text/csv,text/tab-separated-values">'
-)
-
-
 def build_layout(config) -> html.Div:
     return html.Div(
         className="ordinate",
@@ -115,10 +107,10 @@ def _top_bar(config) -> html.Header:
                     html.Div(id=DATASET_SUMMARY),
                 ]),
             ]),
-            html.Label(
+            # assets/upload.js adds the file input and streams the file to /api/upload.
+            html.Div(
                 id="upload-zone",
                 className="upload-zone",
-                htmlFor="upload-input",
                 tabIndex="0",
                 role="button",
                 title=f"Drop a CSV or TSV file here, or press to choose one (up to {limit} MB)",
@@ -126,7 +118,7 @@ def _top_bar(config) -> html.Header:
                 children=[
                     html.Span("Load a CSV", className="upload-label"),
                     html.Span(f"drop or choose · up to {limit} MB", className="upload-hint"),
-                    html.Div(className="upload-progress", children=html.Div(id="upload-progress-bar")),
+                    html.Progress(id="upload-progress", className="upload-progress", max=100, hidden=True),
                 ],
             ),
             html.Div(id="upload-status", className="upload-status", role="status", **{"aria-live": "polite"}),

@@ -1,0 +1,7 @@
+"""``python -m webapp`` runs the ``ordinate`` command."""
+
+import sys
+
+from webapp.cli import main
+
+sys.exit(main())
