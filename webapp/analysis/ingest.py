@@ -13,7 +13,8 @@ Checks are made in this order; the first failure stops the read.
 
 Size
     A file larger than ``max_bytes`` (default 200 MB) is refused before it is
-    read; the message gives both sizes in MB (1 MB = 1024 * 1024 bytes).
+    read; the message gives both sizes in MB (1 MB = 1024 * 1024 bytes; KB
+    below a tenth of a MB).
 
 Binary content
     Files starting with the signature of a workbook (.xlsx / .ods zip, old .xls),
@@ -50,10 +51,12 @@ Sniffing (first 64 KB only, grown when the header row is longer)
       found by the parser.
 
 Parsing
-    pandas' C parser reads the whole file (header skipped, columns named by
-    position, blank lines kept as empty rows so that row numbers stay true to
-    the file). Records with fewer fields than the header are padded with
-    missing values (common practice for CSV readers).
+    pandas' C parser reads the whole file; given a path, pandas may split the
+    work across threads, so callers with large uploads should pass the saved
+    file's path rather than its bytes. Blank lines are kept as empty rows so
+    that row numbers stay true to the file; the header names pandas reads are
+    replaced by the cleaned ones below. Records with fewer fields than the
+    header are padded with missing values (common practice for CSV readers).
 
 Cells and columns
     * Missing markers (exact, after trimming spaces): empty, whitespace only,
@@ -68,7 +71,9 @@ Cells and columns
       warning naming the column and the count.
     * Any other column is text (pandas ``str`` dtype, trimmed, NaN for
       missing). If at least half of its filled cells are numbers, a warning
-      names the first cell that is not, by data row and file line.
+      names the first cell that is not, by data row and file line. (For
+      columns of over 1 000 filled cells, 1 000 evenly spaced cells decide
+      first: if most of those are not numbers the column is plain text.)
     * A cell longer than ``max_cell_chars`` is an error naming row and column.
     * Header names are trimmed; a blank name becomes ``'column N'`` (N counts
       columns in the file from 1); repeated names become ``'pH'``,
@@ -78,12 +83,13 @@ Cells and columns
 
 Roles
     * Sample ID (``id_column``): a text column with no missing cell and no
-      repeated value, and not one of the nearly numeric text columns above; one whose name contains a word such as id, sample, name,
-      batch, label, lot, code or run is preferred, otherwise the first in file
-      order. Failing a text column, an integer-valued numeric column with no
-      missing and no repeated value is used when its name says it is an
-      identifier (``'ID'``, ``'Sample'``, ``'Run no.'``, ``'Batch #'``...); it
-      is then converted to text so that it is never taken for a variable.
+      repeated value, and not one of the nearly numeric text columns above;
+      one whose name contains a word such as id, sample, name, batch, label,
+      lot, code or run is preferred, otherwise the first in file order.
+      Failing a text column, an integer-valued numeric column with no missing
+      and no repeated value is used when its name says it is an identifier
+      (``'ID'``, ``'Sample'``, ``'Run no.'``, ``'Batch #'``...); it is then
+      converted to text so that it is never taken for a variable.
     * Grouping candidates (``group_columns``): text columns other than the ID
       with between 2 and min(20, max(2, m // 2)) distinct values, where m is
       the column's number of filled cells, and integer-valued numeric columns
@@ -105,7 +111,7 @@ import os
 import re
 import warnings
 from collections.abc import Iterator, Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from types import MappingProxyType
 
 import numpy as np
@@ -138,12 +144,12 @@ _SPREADSHEET_ERRORS: frozenset[str] = frozenset(
 _MB = 1024 * 1024
 _SNIFF_BYTES = 64 * 1024
 _CHECK_CHUNK_BYTES = 4 * _MB
+_TEXT_SAMPLE_CELLS = 1000
 _MIN_ROWS = 3
 _MIN_NUMERIC_COLUMNS = 2
 _MAX_TEXT_GROUPS = 20
 _MAX_NUMERIC_GROUPS = 10
 _DELIMITERS = ("\t", ";", ",", "|")  # tie-break order: rarest in values first
-_DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "vertical bar"}
 
 _BINARY_SIGNATURES: tuple[tuple[bytes, str], ...] = (
     (b"PK\x03\x04", "a zip archive (an .xlsx or .ods workbook is one)"),
@@ -227,6 +233,16 @@ class Table:
     missing_counts: Mapping[str, int]
     data_row_numbers: np.ndarray = field(repr=False)
 
+    def __getstate__(self) -> dict:
+        # MappingProxyType cannot be pickled; the compute cache pickles tables.
+        state = {f.name: getattr(self, f.name) for f in fields(self)}
+        state["missing_counts"] = dict(self.missing_counts)
+        return state
+
+    def __setstate__(self, state: dict) -> None:
+        for name, value in state.items():
+            object.__setattr__(self, name, MappingProxyType(value) if name == "missing_counts" else value)
+
     @property
     def n_rows(self) -> int:
         """Number of samples (rows of ``frame``)."""
@@ -278,7 +294,7 @@ def read_table(
     OrdinateError
         For any file that cannot be used; the message says what and where.
     """
-    if filename is None and not isinstance(source, (bytes, bytearray, memoryview)):
+    if filename is None and isinstance(source, (str, os.PathLike)):
         filename = os.path.basename(os.fspath(source))
     subject = f"'{filename}'" if filename else "The file"
 
@@ -351,7 +367,8 @@ def _open_source(source: bytes | str | os.PathLike, max_bytes: int, subject: str
         return _RawFile(data)
     if not isinstance(source, (str, os.PathLike)):
         raise OrdinateError(
-            f"Ordinate cannot read a {type(source).__name__}; give it a file path or the file's bytes."
+            f"Ordinate cannot read data of type {type(source).__name__}; "
+            "give it a file path or the file's bytes."
         )
     path = os.fspath(source)
     try:
@@ -374,9 +391,20 @@ def _open_source(source: bytes | str | os.PathLike, max_bytes: int, subject: str
 def _check_size(n_bytes: int, max_bytes: int, subject: str) -> None:
     if n_bytes > max_bytes:
         raise OrdinateError(
-            f"{subject} is {n_bytes / _MB:.1f} MB, which is over the {max_bytes / _MB:g} MB limit. "
-            "Split it into smaller files, or remove columns you do not need."
+            f"{subject} is {_format_size(n_bytes)}, which is over the {_format_size(max_bytes, exact=True)} "
+            "limit. Split it into smaller files, or remove columns you do not need."
         )
+
+
+def _format_size(n_bytes: int, exact: bool = False) -> str:
+    """'2.8 MB' (1 MB = 1024 * 1024 bytes); KB below a tenth of a MB; '200 MB' for round limits."""
+    if n_bytes >= _MB / 10:
+        size, unit = n_bytes / _MB, "MB"
+    else:
+        size, unit = n_bytes / 1024, "KB"
+    if exact and size == round(size):
+        return f"{round(size)} {unit}"
+    return f"{size:.1f} {unit}"
 
 
 def _reject_empty_or_binary_start(raw_file: _RawFile, subject: str) -> None:
@@ -493,7 +521,7 @@ def _sniff_layout(
     while True:
         text, complete = _decode_prefix(raw_file, encoding, n_bytes)
         sep_line = _EXCEL_SEP_LINE.match(text)
-        forced = sep_line.group(1) if sep_line and sep_line.group(1) in _DELIMITER_NAMES else None
+        forced = sep_line.group(1) if sep_line and sep_line.group(1) in _DELIMITERS else None
         delimiter = forced or _choose_delimiter(text, complete, filename, subject)
         records = _split_records(text, delimiter, complete, subject)
         if forced:
@@ -505,7 +533,9 @@ def _sniff_layout(
         n_bytes *= 4
 
     if header_at is None:
-        raise OrdinateError(f"{subject} contains only blank lines. Choose a CSV file with a header row and data rows.")
+        raise OrdinateError(
+            f"{subject} contains only blank lines. Choose a CSV file with a header row and data rows."
+        )
     header = records[header_at]
     if len(header.fields) < 2:
         raise _no_delimiter_error(subject)
@@ -584,15 +614,16 @@ def _check_header_lengths(header: _Record, max_cell_chars: int, subject: str) ->
     for position, name in enumerate(header.fields, start=1):
         if len(name) > max_cell_chars:
             raise OrdinateError(
-                f"{_within(subject)}, the name of column {position} in the header (line {header.first_line}) is "
-                f"{len(name):,} characters long; the limit is {max_cell_chars:,}. "
+                f"{_within(subject)}, the name of column {position} in the header "
+                f"(line {header.first_line}) is {len(name):,} characters long; "
+                f"the limit is {max_cell_chars:,}. "
                 "Check for a quotation mark (\") that is never closed."
             )
 
 
 def _check_sniffed_record_lengths(header: _Record, records: Sequence[_Record], subject: str) -> None:
     n_fields = len(header.fields)
-    longer = [r for r in records if len(r.fields) > n_fields and not r.is_blank]
+    longer = [r for r in records if len(r.fields) > n_fields]
     if not longer:
         return
     first = longer[0]
@@ -605,7 +636,8 @@ def _ragged_error(
     subject: str, line: int, n_seen: int, n_expected: int, header_short_by_one: bool = False
 ) -> OrdinateError:
     message = (
-        f"{_within(subject)}, line {line} has {n_seen} values but the header row names only {n_expected} columns. "
+        f"{_within(subject)}, line {line} has {n_seen} values "
+        f"but the header row names only {n_expected} columns. "
     )
     if header_short_by_one:
         message += (
@@ -691,9 +723,8 @@ def _parse_frame(
     n_fields = len(layout.header)
     try:
         with warnings.catch_warnings():
-            # With index_col=False pandas only warns, and drops values, when the first data row
-            # is longer than the header; that must be an error.
-            warnings.simplefilter("error", pd.errors.ParserWarning)
+            # Mixed types across the parser's chunks are settled column by column below. (Should
+            # threads race on this context, the worst outcome is that warning staying silenced.)
             warnings.simplefilter("ignore", pd.errors.DtypeWarning)
             frame = pd.read_csv(
                 raw_file.for_pandas(),
@@ -701,7 +732,6 @@ def _parse_frame(
                 decimal=layout.decimal,
                 encoding=encoding,
                 header=0,  # names come from the sniffed header; pandas' own are dropped
-                index_col=False,
                 skiprows=layout.skip_records - 1,
                 skip_blank_lines=False,
                 na_values=sorted(MISSING_MARKERS),
@@ -709,30 +739,33 @@ def _parse_frame(
                 quotechar='"',
                 engine="c",
             )
-            frame.columns = range(frame.shape[1])
-    except pd.errors.ParserWarning as error:
-        raise _ragged_error_from_scan(locator, n_fields, subject, None) from error
     except pd.errors.EmptyDataError as error:
         raise _header_only_error(subject) from error
     except pd.errors.ParserError as error:
         raise _translate_parser_error(error, locator, n_fields, subject) from error
     except UnicodeError as error:
+        codec = encoding.upper().replace("-SIG", "").replace("-LE", "").replace("-BE", "")
+        reason = getattr(error, "reason", str(error))
         raise OrdinateError(
-            f"{subject} is not valid {encoding} text ({error.reason if hasattr(error, 'reason') else error}). "
-            "Save it again as CSV with UTF-8 encoding."
+            f"{subject} looks like {codec} text, but part of it is not valid {codec} ({reason}). "
+            "Save it again as CSV, choosing UTF-8 as the encoding."
         ) from error
     except MemoryError as error:
         raise OrdinateError(
             f"{subject} is too large to load in the memory available. Split it into smaller files."
         ) from error
     except (ValueError, OverflowError, csv.Error) as error:
-        raise OrdinateError(
-            f"{subject} could not be read as a table ({error}). Check that it is a plain CSV export."
-        ) from error
+        raise _unreadable_error(subject, f"the parser reports: {error}") from error
+    if not frame.index.equals(pd.RangeIndex(len(frame))):
+        # pandas took the first values as row labels: the first data row is longer than the
+        # header. The sniffer reports that case itself unless it counted the fields differently.
+        raise _ragged_error_from_scan(locator, n_fields, subject)
+    frame.columns = range(frame.shape[1])
     if frame.shape[1] != n_fields:  # the csv module and pandas split the header differently
-        raise OrdinateError(
-            f"{subject} could not be read as a table: its header row splits into {n_fields} columns one way "
-            f"and {frame.shape[1]} another. Check the quotation marks (\") in the header row."
+        raise _unreadable_error(
+            subject,
+            f"its header row splits into {n_fields} columns one way and {frame.shape[1]} another; "
+            "check the quotation marks in the header row",
         )
     return frame
 
@@ -743,31 +776,46 @@ def _translate_parser_error(
     text = str(error)
     ragged = _PANDAS_RAGGED.search(text)
     if ragged:
-        return _ragged_error_from_scan(locator, n_fields, subject, int(ragged.group(3)), int(ragged.group(2)))
+        pandas_count = (int(ragged.group(2)), int(ragged.group(3)))
+        return _ragged_error_from_scan(locator, n_fields, subject, pandas_count)
     open_quote = _PANDAS_OPEN_QUOTE.search(text)
     if open_quote:
         line = locator.line_of_record(int(open_quote.group(1)))
         return OrdinateError(
-            f"{_within(subject)}, a quotation mark (\") opened on line {line} is never closed, so the rest of the "
-            "file would be read as a single value. Close or remove that quotation mark."
+            f"{_within(subject)}, a quotation mark (\") opened on line {line} is never closed, "
+            "so the rest of the file would be read as a single value. Close or remove that quotation mark."
         )
-    return OrdinateError(f"{subject} could not be read as a table ({text}). Check that it is a plain CSV export.")
+    return _unreadable_error(subject, f"the parser reports: {text}")
 
 
 def _ragged_error_from_scan(
-    locator: _LineLocator, n_fields: int, subject: str, n_seen: int | None, pandas_record: int | None = None
+    locator: _LineLocator, n_fields: int, subject: str, pandas_count: tuple[int, int] | None = None
 ) -> OrdinateError:
+    """Name the first record longer than the header, found by scanning the file.
+
+    ``pandas_count`` is the parser's (1-based record number, field count), used
+    only when the scan finds nothing (the csv module and pandas disagree).
+    """
     found = locator.first_longer_record(n_fields)
     if found is not None:
-        line, n_seen = found
-    else:  # the scan and the parser disagree: fall back on the parser's own count
-        line = locator.line_of_record((pandas_record or 1) - 1)
-    return _ragged_error(subject, line, n_seen or n_fields + 1, n_fields)
+        return _ragged_error(subject, *found, n_fields)
+    if pandas_count is not None:
+        record, n_seen = pandas_count
+        return _ragged_error(subject, locator.line_of_record(record - 1), n_seen, n_fields)
+    return _unreadable_error(subject, "some rows have more values than the header row names")
+
+
+def _unreadable_error(subject: str, reason: str) -> OrdinateError:
+    return OrdinateError(
+        f"{subject} could not be read as a table ({reason}). "
+        "Check that it is a plain CSV export with one header row."
+    )
 
 
 def _header_only_error(subject: str) -> OrdinateError:
     return OrdinateError(
-        f"{subject} has a header row but no data rows below it. Add at least {_MIN_ROWS} samples, one per row."
+        f"{subject} has a header row but no data rows below it. "
+        f"Add at least {_MIN_ROWS} samples, one per row."
     )
 
 
@@ -789,10 +837,13 @@ def _build_table(
     if len(parsed) == 0:
         raise _header_only_error(subject)
 
-    numeric, looks_numeric = _settle_column_types(parsed, names, layout.decimal, locator, max_cell_chars, subject, notes)
+    numeric, looks_numeric = _settle_column_types(
+        parsed, names, layout.decimal, locator, max_cell_chars, subject, notes
+    )
     parsed.columns = names
     missing = parsed.isna().to_numpy()  # one mask serves empty columns, empty rows and missing counts
     frame, missing = _drop_empty_columns(parsed, missing, layout.header, notes)
+    _note_unnamed_columns(frame, layout.header, notes)
     frame, missing, row_numbers = _drop_empty_rows(frame, missing, notes)
     _require_rows(len(frame), subject)
 
@@ -846,8 +897,9 @@ def _settle_column_types(
                 parsed[position] = finished
             numeric.append(name)
             continue
-        _check_cell_lengths(series, name, max_cell_chars, locator, subject)
-        text, values, stray = _classify_text_column(series, decimal, name, notes)
+        as_text = series.astype("str")  # also turns mixed chunks and True/False into text
+        _check_cell_lengths(as_text, name, max_cell_chars, locator, subject)
+        text, values, stray = _classify_text_column(as_text, decimal, name, notes)
         if values is not None:
             parsed[position] = _finish_numeric(values, name, notes)
             numeric.append(name)
@@ -871,17 +923,11 @@ def _require_rows(n_rows: int, subject: str) -> None:
 
 
 def _clean_names(raw_names: Sequence[str], notes: list[str]) -> list[str]:
+    """Trimmed, unique names; a blank one becomes 'column N' (see _note_unnamed_columns)."""
     names = [name.strip() for name in raw_names]
-    blank = [position for position, name in enumerate(names, start=1) if not name]
-    for position in blank:
-        names[position - 1] = f"column {position}"
-    if blank:
-        listed = ", ".join(str(p) for p in blank)
-        notes.append(
-            f"{len(blank)} column{'s have' if len(blank) > 1 else ' has'} no name in the header "
-            f"(position {listed}); {'they are' if len(blank) > 1 else 'it is'} called 'column N' after "
-            "its position."
-        )
+    for position, name in enumerate(names, start=1):
+        if not name:
+            names[position - 1] = f"column {position}"
     taken = set(names)
     seen: dict[str, int] = {}
     renamed: list[str] = []
@@ -907,6 +953,24 @@ def _clean_names(raw_names: Sequence[str], notes: list[str]) -> list[str]:
     return names
 
 
+def _note_unnamed_columns(frame: pd.DataFrame, raw_header: Sequence[str], notes: list[str]) -> None:
+    # Called after empty columns are dropped: a nameless empty column is not worth two notes.
+    kept = set(frame.columns)
+    positions = [
+        position
+        for position, name in enumerate(raw_header, start=1)
+        if not name.strip() and f"column {position}" in kept
+    ]
+    if positions:
+        listed = ", ".join(str(p) for p in positions)
+        several = len(positions) > 1
+        notes.append(
+            f"{len(positions)} column{'s have' if several else ' has'} no name in the header "
+            f"(position {listed}); {'they are' if several else 'it is'} called 'column N' after "
+            f"{'their positions' if several else 'its position'}."
+        )
+
+
 def _is_plain_numeric(series: pd.Series) -> bool:
     dtype = series.dtype
     return pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)
@@ -920,15 +984,16 @@ def _finish_numeric(values: np.ndarray, name: str, notes: list[str]) -> np.ndarr
         return values
     notes.append(
         f"Column '{name}' had {n_infinite} cell{'s' if n_infinite > 1 else ''} reading an infinite "
-        f"value ('inf', '-inf' or 'Infinity'); {'they are' if n_infinite > 1 else 'it is'} treated as missing."
+        f"value ('inf', '-inf' or 'Infinity'); "
+        f"{'they are' if n_infinite > 1 else 'it is'} treated as missing."
     )
     return np.where(infinite, np.nan, values)
 
 
 def _check_cell_lengths(
-    series: pd.Series, name: str, max_cell_chars: int, locator: _LineLocator, subject: str
+    text: pd.Series, name: str, max_cell_chars: int, locator: _LineLocator, subject: str
 ) -> None:
-    lengths = series.astype("str").str.len()
+    lengths = text.str.len()
     too_long = (lengths > max_cell_chars).to_numpy(dtype=bool, na_value=False)
     if not too_long.any():
         return
@@ -941,7 +1006,7 @@ def _check_cell_lengths(
 
 
 def _classify_text_column(
-    series: pd.Series, decimal: str, name: str, notes: list[str]
+    raw_text: pd.Series, decimal: str, name: str, notes: list[str]
 ) -> tuple[pd.Series, np.ndarray | None, tuple[int, int] | None]:
     """Decide whether a column pandas left as text is really numeric.
 
@@ -950,7 +1015,7 @@ def _classify_text_column(
     at least half the filled cells are numbers, the row index of the first
     cell that is not and the number of such cells.
     """
-    text = series.astype("str").str.strip()
+    text = raw_text.str.strip()
     missing = text.isna() | text.isin(MISSING_MARKERS)
     spreadsheet_error = text.isin(_SPREADSHEET_ERRORS)
     n_errors = int(spreadsheet_error.sum())
@@ -966,18 +1031,29 @@ def _classify_text_column(
     filled = text[~missing]
     if len(filled) == 0:
         return text, None, None
-    if decimal == ",":
-        # Under a decimal comma a dot can only be a thousands separator, which is not supported.
-        filled = filled.mask(filled.str.contains(".", regex=False), "not a number").str.replace(",", ".", regex=False)
-    parsed = pd.to_numeric(filled, errors="coerce")
+    if len(filled) > _TEXT_SAMPLE_CELLS:
+        # Columns of names or comments fail on a spread-out sample: no need to convert them whole.
+        spread = np.linspace(0, len(filled) - 1, _TEXT_SAMPLE_CELLS).astype(np.intp)
+        if _as_numbers(filled.iloc[spread], decimal).isna().mean() > 0.5:
+            return text, None, None
+    parsed = _as_numbers(filled, decimal)
     not_number = parsed.isna()
     if not not_number.any():
-        values = np.full(len(series), np.nan)
+        values = np.full(len(text), np.nan)
         values[(~missing).to_numpy()] = parsed.to_numpy(dtype=np.float64)
         return text, values, None
     if not_number.mean() <= 0.5:
         return text, None, (int(not_number.idxmax()), int(not_number.sum()))
     return text, None, None
+
+
+def _as_numbers(strings: pd.Series, decimal: str) -> pd.Series:
+    """Float value of each trimmed string, NaN where it is not a number."""
+    if decimal == ",":
+        # Under a decimal comma a dot can only be a thousands separator, which is not supported.
+        strings = strings.mask(strings.str.contains(".", regex=False), "not a number")
+        strings = strings.str.replace(",", ".", regex=False)
+    return pd.to_numeric(strings, errors="coerce")
 
 
 def _describe_stray_cell(

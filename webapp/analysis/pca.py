@@ -50,6 +50,8 @@ SOLVERS = ("auto", "covariance", "gram", "partial")
 FULL_EIGH_LIMIT = 2_000
 # Components kept with scores and loadings when only the leading ones are computed.
 DEFAULT_PARTIAL_COMPONENTS = 100
+# Rows are centred in blocks of about this size, small enough to stay in cache.
+BLOCK_BYTES = 2 * 2**20
 
 
 @dataclass(frozen=True, eq=False)
@@ -114,13 +116,15 @@ def fit_pca(
         all of them for the full solvers and the leading
         ``DEFAULT_PARTIAL_COMPONENTS`` for the partial solver.
     centre : subtract column means first (a convenience for callers that skip
-        the recipe; the recipe normally centres).
+        the recipe; the recipe normally centres). Centring is done block by
+        block, before any cross-product, so large offsets cost no accuracy.
     solver : ``auto`` (by shape), ``covariance``, ``gram`` or ``partial``.
     """
     X = _validated_matrix(X)
-    if centre:
-        X = X - X.mean(axis=0)
     n, p = X.shape
+    offset = X.mean(axis=0) if centre else None
+    if offset is not None and not np.isfinite(offset).all():
+        raise _not_finite_error()
     resolved = _resolve_solver(solver, n, p, n_components)
     limit = min(n, p)
     if n_components is not None:
@@ -131,13 +135,16 @@ def fit_pca(
             )
         n_components = int(n_components)
     if resolved == "covariance":
-        values, vectors = _covariance_eigh(X)
-    elif resolved == "gram":
-        values, vectors = _gram_eigh(X)
+        spectrum = _covariance_eigh(X, offset)
     else:
-        k = n_components or min(DEFAULT_PARTIAL_COMPONENTS, limit - 1)
-        values, vectors = _partial_eigh(X, k)
-    return _assemble(X, values, vectors, resolved, n_components)
+        # Wide data: the Gram matrix needs every row pair, so centre once.
+        X = X - offset if offset is not None else X
+        offset = None
+        if resolved == "gram":
+            spectrum = _gram_eigh(X)
+        else:
+            spectrum = _partial_eigh(X, n_components or min(DEFAULT_PARTIAL_COMPONENTS, limit - 1))
+    return _assemble(X, offset, spectrum, resolved, n_components)
 
 
 def project(X_new: np.ndarray, loadings: np.ndarray) -> np.ndarray:
@@ -179,32 +186,70 @@ def _resolve_solver(solver: str, n: int, p: int, n_components: int | None) -> st
     return "covariance" if p <= n else "gram"
 
 
-def _covariance_eigh(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    cross = X.T @ X  # numpy dispatches XᵀX to the symmetric BLAS kernel
+@dataclass(frozen=True, eq=False)
+class _Spectrum:
+    """What a solver found: eigenvalues of C, eigenvectors (loadings), traces of C and C²."""
+
+    values: np.ndarray
+    vectors: np.ndarray
+    trace: float
+    trace_of_square: float | None  # None: compute from the eigenvalues (complete spectrum)
+
+
+def _covariance_eigh(X: np.ndarray, offset: np.ndarray | None) -> _Spectrum:
+    cross = _cross_product(X, offset)
+    _check_finite_product(cross)
+    trace = float(np.trace(cross)) / (X.shape[0] - 1)
     values, vectors = scipy.linalg.eigh(cross, overwrite_a=True, check_finite=False, driver="evd")
-    return values[::-1] / (X.shape[0] - 1), vectors[:, ::-1]
+    return _Spectrum(values[::-1] / (X.shape[0] - 1), vectors[:, ::-1], trace, None)
 
 
-def _gram_eigh(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _cross_product(X: np.ndarray, offset: np.ndarray | None) -> np.ndarray:
+    """XᵀX of the centred data, centring one cache-sized block of rows at a time.
+
+    Avoids materialising a centred copy of X (one write and one read of the
+    whole array fewer than centring first), without the cancellation of
+    XᵀX − n·x̄x̄ᵀ.
+    """
+    if offset is None:
+        return X.T @ X  # numpy dispatches XᵀX to the symmetric BLAS kernel
+    n, p = X.shape
+    cross = np.zeros((p, p))
+    for rows in _row_blocks(n, p):
+        block = X[rows] - offset
+        cross += block.T @ block
+    return cross
+
+
+def _row_blocks(n: int, p: int):
+    step = max(256, BLOCK_BYTES // (8 * max(p, 1)))
+    return (slice(start, min(start + step, n)) for start in range(0, n, step))
+
+
+def _gram_eigh(X: np.ndarray) -> _Spectrum:
     gram = X @ X.T
+    _check_finite_product(gram)
+    trace = float(np.trace(gram)) / (X.shape[0] - 1)
     values, left = scipy.linalg.eigh(gram, overwrite_a=True, check_finite=False, driver="evd")
     values, left = values[::-1], left[:, ::-1]
-    return values / (X.shape[0] - 1), _loadings_from_left(X, values, left)
+    return _Spectrum(values / (X.shape[0] - 1), _loadings_from_left(X, values, left), trace, None)
 
 
-def _partial_eigh(X: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+def _partial_eigh(X: np.ndarray, k: int) -> _Spectrum:
     n, p = X.shape
     small = X.T @ X if p <= n else X @ X.T
+    _check_finite_product(small)
+    trace = float(np.trace(small)) / (n - 1)
+    trace_of_square = float(np.einsum("ij,ij->", small, small)) / (n - 1) ** 2
     k = min(k, small.shape[0] - 1)
-    rng = np.random.default_rng(0)  # ARPACK's start vector: fixed for reproducibility
-    start = rng.standard_normal(small.shape[0])
+    start = np.random.default_rng(0).standard_normal(small.shape[0])  # fixed: reproducible runs
     values, vectors = scipy.sparse.linalg.eigsh(small, k=k, which="LA", v0=start, tol=0)
     order = np.argsort(values)[::-1]
     values, vectors = np.clip(values[order], 0, None), vectors[:, order]
     _check_eigenpairs(small, values, vectors)
     if p > n:
         vectors = _loadings_from_left(X, values, vectors)
-    return values / (n - 1), vectors
+    return _Spectrum(values / (n - 1), vectors, trace, trace_of_square)
 
 
 def _loadings_from_left(X: np.ndarray, gram_values: np.ndarray, left: np.ndarray) -> np.ndarray:
@@ -235,27 +280,26 @@ def _check_eigenpairs(matrix: np.ndarray, values: np.ndarray, vectors: np.ndarra
 # --- assembly ----------------------------------------------------------------
 
 
-def _assemble(X, values, vectors, solver, n_components) -> PCAFit:
+def _assemble(X, offset, spectrum: _Spectrum, solver, n_components) -> PCAFit:
     n, p = X.shape
-    values = np.clip(values, 0.0, None)
-    total = float(np.einsum("ij,ij->", X, X)) / (n - 1)
+    values = np.clip(spectrum.values, 0.0, None)
     tolerance = max(n, p) * np.finfo(float).eps * (values[0] if values.size else 0.0)
     values[values <= tolerance] = 0.0
     rank = int(np.count_nonzero(values))
     complete = values.size == min(n, p)
-    squared = float(np.sum(values**2)) if complete else _trace_of_square(X)
+    squared = float(np.sum(values**2)) if spectrum.trace_of_square is None else spectrum.trace_of_square
     # Directions beyond the rank carry no variance and are arbitrary: not kept.
+    vectors = spectrum.vectors
     k = min(vectors.shape[1], n_components or vectors.shape[1], max(rank, 1))
     loadings = np.ascontiguousarray(vectors[:, :k])
-    scores = X @ loadings
+    scores = _scores(X, offset, loadings)
     apply_sign_rule(loadings, scores)
-    for array in (values, loadings, scores):
-        array.setflags(write=False)
     singular = np.sqrt(values * (n - 1))
-    singular.setflags(write=False)
+    for array in (values, loadings, scores, singular):
+        array.setflags(write=False)
     return PCAFit(
         eigenvalues=values,
-        total_variance=total,
+        total_variance=spectrum.trace,
         sum_squared_eigenvalues=squared,
         loadings=loadings,
         scores=scores,
@@ -268,11 +312,27 @@ def _assemble(X, values, vectors, solver, n_components) -> PCAFit:
     )
 
 
-def _trace_of_square(X: np.ndarray) -> float:
-    """trace(C²) = ||XᵀX||²_F / (n-1)² computed on the smaller side."""
-    n, p = X.shape
-    small = X.T @ X if p <= n else X @ X.T
-    return float(np.einsum("ij,ij->", small, small)) / (n - 1) ** 2
+def _scores(X: np.ndarray, offset: np.ndarray | None, loadings: np.ndarray) -> np.ndarray:
+    if offset is None:
+        return X @ loadings
+    scores = np.empty((X.shape[0], loadings.shape[1]))
+    for rows in _row_blocks(*X.shape):
+        np.matmul(X[rows] - offset, loadings, out=scores[rows])
+    return scores
+
+
+def _check_finite_product(product: np.ndarray) -> None:
+    # A NaN or inf anywhere in X makes its column's sum of squares (the
+    # diagonal) non-finite, so this replaces a full pass over X.
+    if not np.isfinite(np.diagonal(product)).all():
+        raise _not_finite_error()
+
+
+def _not_finite_error() -> OrdinateError:
+    return OrdinateError(
+        "The data still contains missing or infinite values after preprocessing; "
+        "choose a missing-value strategy (drop, mean or iterative)."
+    )
 
 
 def _validated_matrix(X, *, allow_few: bool = False) -> np.ndarray:
@@ -283,10 +343,5 @@ def _validated_matrix(X, *, allow_few: bool = False) -> np.ndarray:
     if not allow_few and (n < 2 or p < 1):
         raise OrdinateError(
             f"PCA needs at least 2 samples and 1 variable; the data has {n} samples and {p} variables."
-        )
-    if not np.isfinite(X).all():
-        raise OrdinateError(
-            "The data still contains missing or infinite values after preprocessing; "
-            "choose a missing-value strategy (drop, mean or iterative)."
         )
     return X

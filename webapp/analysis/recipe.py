@@ -239,10 +239,11 @@ def _resolve_id_column(table, recipe: Recipe) -> str | None:
 
 
 def _labels(table, id_column: str | None) -> list[str]:
+    rows = table.data_row_numbers.tolist()
     if id_column is None:
-        return [f"row {i + 1}" for i in range(len(table.frame))]
+        return [f"row {number}" for number in rows]
     column = table.frame[id_column]
-    labels = [_label_text(value, i) for i, value in enumerate(column)]
+    labels = [_label_text(value, number) for value, number in zip(column, rows)]
     if len(set(labels)) != len(labels):
         raise OrdinateError(
             f"The column '{id_column}' cannot label samples: some labels repeat or are blank. "
@@ -251,9 +252,9 @@ def _labels(table, id_column: str | None) -> list[str]:
     return labels
 
 
-def _label_text(value, index: int) -> str:
+def _label_text(value, row_number: int) -> str:
     if value is None or (isinstance(value, float) and np.isnan(value)):
-        return f"row {index + 1}"
+        return f"row {row_number}"
     if isinstance(value, float) and value.is_integer():
         return str(int(value))
     return str(value)

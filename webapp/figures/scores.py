@@ -48,7 +48,7 @@ from webapp.figures._points import (
 )
 from webapp.figures.palette import ALL_SAMPLES_GROUP, NEUTRAL_COLOUR, GroupStyle
 from webapp.figures.text import count_text, escape_text, level_percent, percent, template_literal
-from webapp.figures.theme import MUTED_TEXT_COLOUR, TEXT_COLOUR, Style, axis_style, new_figure, style_for
+from webapp.figures.theme import TEXT_COLOUR, Style, axis_style, new_figure, style_for
 
 if TYPE_CHECKING:  # the figures only read the fields of these results
     from webapp.analysis.ellipses import Ellipse
@@ -185,9 +185,19 @@ def loading_arrows(
 
 
 def arrow_annotations(
-    variables: Sequence[str], dx: np.ndarray, dy: np.ndarray, style: Style, colour: str = ARROW_COLOUR
+    variables: Sequence[str],
+    dx: np.ndarray,
+    dy: np.ndarray,
+    style: Style,
+    colour: str = ARROW_COLOUR,
+    *,
+    labels_inside: bool = False,
 ) -> list[dict]:
-    """Two annotations per variable: an arrow from the origin to (dx, dy) and the name at the tip."""
+    """Two annotations per variable: an arrow from the origin to (dx, dy) and the name at the tip.
+
+    Names sit just beyond the tip, or with ``labels_inside`` just inside it
+    beside the shaft (for plots whose arrows reach the edge of the axes).
+    """
     annotations = []
     for name, tip_x, tip_y in zip(variables, np.asarray(dx).tolist(), np.asarray(dy).tolist()):
         annotations.append(dict(
@@ -197,14 +207,22 @@ def arrow_annotations(
             arrowhead=2, arrowsize=1.0, arrowwidth=style.arrow_width, arrowcolor=colour,
             standoff=0, startstandoff=0,
         ))
+        if not labels_inside:
+            placement = dict(
+                xanchor="left" if tip_x >= 0 else "right",
+                yanchor="bottom" if tip_y >= 0 else "top",
+                xshift=3 if tip_x >= 0 else -3,
+            )
+        elif abs(tip_x) >= abs(tip_y):  # mostly horizontal: above the shaft, towards the origin
+            placement = dict(xanchor="right" if tip_x >= 0 else "left", yanchor="bottom", yshift=2)
+        else:  # mostly vertical: right of the shaft, towards the origin
+            placement = dict(xanchor="left", yanchor="top" if tip_y >= 0 else "bottom", xshift=4)
         annotations.append(dict(
             x=tip_x, y=tip_y, xref="x", yref="y",
             text=escape_text(name), showarrow=False,
-            xanchor="left" if tip_x >= 0 else "right",
-            yanchor="bottom" if tip_y >= 0 else "top",
-            xshift=3 if tip_x >= 0 else -3,
             font=dict(size=style.label_size, color=TEXT_COLOUR),
             bgcolor="rgba(255,255,255,0.7)",
+            **placement,
         ))
     return annotations
 
@@ -294,8 +312,10 @@ def _density_trace(x: np.ndarray, y: np.ndarray, style: Style) -> go.Heatmap:
         z=z,
         colorscale=_DENSITY_COLOURSCALE,
         showscale=True,
-        colorbar=dict(title=dict(text="Samples<br>per cell", side="top"), thickness=12, len=0.6,
-                      x=1.0, xanchor="left", xpad=4),
+        # Bottom right, below the legend (which starts at the top).
+        colorbar=dict(title=dict(text="Samples<br>per cell", side="top"), thickness=12, len=0.4,
+                      x=1.02, xanchor="left", y=0.0, yanchor="bottom", xpad=4,
+                      tickfont=dict(size=style.note_size)),
         hovertemplate="%{z:.0f} samples in this cell<extra></extra>",
         name="Sample density",
         showlegend=False,

@@ -15,6 +15,7 @@ twice the screen resolution, no Plotly logo.
 
 from __future__ import annotations
 
+import textwrap
 from dataclasses import dataclass
 
 import plotly.graph_objects as go
@@ -26,8 +27,11 @@ __all__ = [
     "TEXT_COLOUR",
     "MUTED_TEXT_COLOUR",
     "GRID_COLOUR",
+    "AXIS_LINE_COLOUR",
     "ZERO_LINE_COLOUR",
     "NOTES_ANNOTATION_NAME",
+    "NOTE_WIDTH",
+    "wrap_note",
     "GRAPH_CONFIG",
     "Style",
     "NORMAL",
@@ -113,7 +117,7 @@ def base_layout(style: Style, *, title: str | None = None, notes: list[str] = ()
     ``title`` and each note are plain text (escaped here). Notes go into one
     left-aligned annotation just above the plotting area, one line each.
     """
-    notes = [n for n in notes if n]
+    notes = [line for note in notes if note for line in wrap_note(note)]
     line_height = int(round(style.note_size * 1.45))
     top = 20
     if title:
@@ -161,6 +165,15 @@ def base_layout(style: Style, *, title: str | None = None, notes: list[str] = ()
     if notes:
         layout["annotations"] = [notes_annotation(notes, style)]
     return layout
+
+
+#: Notes are wrapped to lines of at most this many characters (annotations do not wrap).
+NOTE_WIDTH = 110
+
+
+def wrap_note(note: str) -> list[str]:
+    """Split a note into lines of at most :data:`NOTE_WIDTH` characters."""
+    return textwrap.wrap(note, NOTE_WIDTH, break_long_words=False, break_on_hyphens=False) or [note]
 
 
 def notes_annotation(notes: list[str], style: Style) -> dict:

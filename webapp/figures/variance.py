@@ -110,7 +110,7 @@ def variance_figure(
     traces: list = [go.Bar(
         x=pcs, y=percent, customdata=eig[:m].astype(np.float32),
         name="Explained variance (%)",
-        marker=dict(color=np.where(kept, _KEPT_COLOUR, _DROPPED_COLOUR).tolist() if components else _KEPT_COLOUR,
+        marker=dict(color=np.where(kept, _KEPT_COLOUR, _DROPPED_COLOUR).tolist() if components is not None else _KEPT_COLOUR,
                     line=dict(width=0)),
         hovertemplate="PC%{x}: %{y:.2f} % of the variance<br>eigenvalue %{customdata:.4g}<extra></extra>",
     )]
@@ -177,7 +177,8 @@ def variance_figure(
                "ticktext": [f"PC{i}" for i in pcs.tolist()], "range": [0.4, m + 0.6]},
         yaxis={**axis_style("Explained variance (%)"), "range": [0, reference_max * 1.12], "rangemode": "tozero"},
         yaxis2={**axis_style("Cumulative (%)", zero_line=False), "overlaying": "y", "side": "right",
-                "range": [0, 105], "showgrid": False},
+                "range": [0, 105], "showgrid": False,
+                "tickmode": "linear", "tick0": 0, "dtick": 20},
         legend=dict(orientation="h", x=0.0, xanchor="left", y=-0.16, yanchor="top"),
         bargap=0.25,
         shapes=shapes,

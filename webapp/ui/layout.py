@@ -123,7 +123,8 @@ def _top_bar(config) -> html.Header:
             ),
             html.Div(id="upload-status", className="upload-status", role="status", **{"aria-live": "polite"}),
             html.Div(className="share", children=[
-                dcc.Input(id=LINK_TEXT, readOnly=True, className="link-text", **{"aria-label": "Link to this view"}),
+                html.Label([html.Span("Link to this view", className="visually-hidden"),
+                            dcc.Input(id=LINK_TEXT, readOnly=True, className="link-text")]),
                 dcc.Clipboard(id=COPY_LINK, target_id=LINK_TEXT, title="Copy the link to this view",
                               className="copy-button"),
             ]),

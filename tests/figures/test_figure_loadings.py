@@ -1,0 +1,84 @@
+"""Tests for webapp.figures.loadings (loadings bars, correlation circle).
+
+References: iris (scikit-learn ``load_iris``); numpy ``corrcoef`` for the
+variable-component correlations of autoscaled data, which must lie inside
+the unit circle (a correlation is at most 1 in absolute value, and the two
+components are uncorrelated, so r_x² + r_y² <= 1).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from sklearn.datasets import load_iris
+
+from webapp.analysis.errors import OrdinateError
+from webapp.figures import correlation_circle_figure, loadings_bar_figure
+from webapp.figures.palette import NEGATIVE_COLOUR, POSITIVE_COLOUR
+
+
+@pytest.fixture(scope="module")
+def iris():
+    data = load_iris()
+    Z = (data.data - data.data.mean(axis=0)) / data.data.std(axis=0, ddof=1)
+    eigenvalues, vectors = np.linalg.eigh(np.corrcoef(data.data, rowvar=False))
+    order = np.argsort(eigenvalues)[::-1]
+    vectors = vectors[:, order]
+    T = Z @ vectors
+    r = np.array([[np.corrcoef(Z[:, j], T[:, a])[0, 1] for a in range(2)] for j in range(4)])
+    return dict(loadings=vectors, r=r, variables=list(data.feature_names), eigenvalues=eigenvalues[order])
+
+
+def test_loadings_bars_sorted_by_size_with_signed_colours():
+    variables = ["a", "b<", "c", "d"]
+    loadings = np.array([0.1, -0.7, 0.5, -0.2])
+    fig = loadings_bar_figure(variables=variables, loadings=loadings, component=2, explained_ratio=0.2285)
+    bars = fig.data[0]
+    np.testing.assert_allclose(bars.x, [-0.7, 0.5, -0.2, 0.1], rtol=1e-6)
+    assert list(fig.layout.yaxis.ticktext) == ["b&lt;", "c", "d", "a"]
+    assert list(bars.marker.color) == [NEGATIVE_COLOUR, POSITIVE_COLOUR, NEGATIVE_COLOUR, POSITIVE_COLOUR]
+    assert fig.layout.title.text == "Loadings on PC2 · 22.9 %"
+    assert bars.x.dtype == np.float32
+
+
+def test_many_variables_make_the_figure_taller():
+    fig = loadings_bar_figure(variables=[f"v{i}" for i in range(50)], loadings=np.linspace(-1, 1, 50),
+                              component=1, explained_ratio=0.5)
+    assert fig.layout.height == 160 + 20 * 50
+
+
+def test_correlation_circle(iris):
+    r = iris["r"]
+    fig = correlation_circle_figure(variables=iris["variables"], correlations_x=r[:, 0], correlations_y=r[:, 1],
+                                    x_title="PC1 · 73.0 %", y_title="PC2 · 22.9 %")
+    unit, half = fig.data[0], fig.data[1]
+    np.testing.assert_allclose(np.hypot(unit.x, unit.y), 1.0, atol=1e-6)
+    np.testing.assert_allclose(np.hypot(half.x, half.y), 0.5, atol=1e-6)
+    assert unit.x[0] == unit.x[-1] and unit.y[0] == unit.y[-1]
+    assert half.line.dash == "dot"
+    arrows = [a for a in fig.layout.annotations if a.showarrow]
+    assert len(arrows) == len(iris["variables"])
+    for a, (rx, ry) in zip(arrows, r):
+        assert (a.ax, a.ay, a.axref, a.ayref) == (0, 0, "x", "y")
+        assert a.x == pytest.approx(rx, abs=1e-6) and a.y == pytest.approx(ry, abs=1e-6)
+    # The same correlations from loading × sqrt(eigenvalue) (Gabriel 1971):
+    np.testing.assert_allclose(iris["loadings"][:, :2] * np.sqrt(iris["eigenvalues"][:2]), r, atol=1e-12)
+    assert tuple(fig.layout.xaxis.range) == (-1.1, 1.1) and tuple(fig.layout.yaxis.range) == (-1.1, 1.1)
+    assert fig.layout.yaxis.scaleanchor == "x" and fig.layout.yaxis.scaleratio == 1
+    assert fig.layout.xaxis.title.text == "PC1 · 73.0 %"
+
+
+def test_correlation_circle_rejects_loadings_outside_the_circle():
+    with pytest.raises(OrdinateError, match="unit circle"):
+        correlation_circle_figure(variables=["a"], correlations_x=[1.2], correlations_y=[0.1], x_title="x", y_title="y")
+
+
+def test_presentation_mode(iris):
+    kwargs = dict(variables=iris["variables"], correlations_x=iris["r"][:, 0], correlations_y=iris["r"][:, 1],
+                  x_title="x", y_title="y")
+    normal, big = correlation_circle_figure(**kwargs), correlation_circle_figure(**kwargs, presentation=True)
+    assert big.layout.font.size > normal.layout.font.size
+    assert big.layout.annotations[0].arrowwidth > normal.layout.annotations[0].arrowwidth
+    assert big.data[2].marker.size > normal.data[2].marker.size
+    bars = dict(variables=["a", "b"], loadings=np.array([0.6, -0.8]), component=1, explained_ratio=0.5)
+    assert loadings_bar_figure(**bars, presentation=True).layout.font.size > loadings_bar_figure(**bars).layout.font.size

@@ -1,0 +1,130 @@
+"""Loadings of one component as bars, and the correlation circle of two components.
+
+The correlation circle draws, for each variable, the arrow (r_x, r_y) of its
+correlations with the two components. Every arrow lies inside the unit
+circle; an arrow reaching the circle means the two components describe that
+variable completely, a short one that they describe it poorly. The dotted
+inner circle marks radius 0.5 (a quarter of the variable's variance).
+"""
+
+from __future__ import annotations
+
+from typing import Sequence
+
+import numpy as np
+import plotly.graph_objects as go
+
+from webapp.analysis.errors import OrdinateError
+from webapp.figures._points import as_float32
+from webapp.figures.palette import NEGATIVE_COLOUR, POSITIVE_COLOUR
+from webapp.figures.scores import ARROW_COLOUR, arrow_annotations
+from webapp.figures.text import escape_text, percent
+from webapp.figures.theme import AXIS_LINE_COLOUR, MUTED_TEXT_COLOUR, axis_style, new_figure, style_for
+
+__all__ = ["loadings_bar_figure", "correlation_circle_figure", "CIRCLE_RANGE"]
+
+#: Both axes of the correlation circle span this range.
+CIRCLE_RANGE = (-1.1, 1.1)
+_CIRCLE_POINTS = 241
+
+
+def _names(variables: Sequence[str], p: int | None = None) -> list[str]:
+    names = [str(v) for v in variables]
+    if not names:
+        raise OrdinateError("There are no variables to show.")
+    if p is not None and len(names) != p:
+        raise OrdinateError(f"There are {len(names)} variable names for {p} values.")
+    return names
+
+
+def loadings_bar_figure(
+    *,
+    variables: Sequence[str],
+    loadings: np.ndarray,
+    component: int,
+    explained_ratio: float,
+    presentation: bool = False,
+) -> go.Figure:
+    """Horizontal bars of the loadings on one component, largest |loading| at the top.
+
+    Positive loadings are blue, negative vermillion, and they point to
+    opposite sides of zero, so the sign is readable without colour.
+    ``component`` is 1-based. Above 20 variables the figure grows in height
+    (20 px per bar) so that every name stays readable.
+    """
+    style = style_for(presentation)
+    names = _names(variables)
+    values = as_float32(loadings, "loadings", len(names))
+    order = np.argsort(-np.abs(values), kind="stable")
+    shown = [escape_text(names[i]) for i in order]
+    rows = np.arange(len(names), dtype=np.int32)
+    sorted_values = values[order]
+    fig = new_figure(
+        style,
+        title=f"Loadings on PC{int(component)} · {percent(explained_ratio)}",
+        notes=["Sorted by size; blue: positive, vermillion: negative."],
+        xaxis={**axis_style("Loading"), "zeroline": True},
+        yaxis={**axis_style(zero_line=False), "tickmode": "array", "tickvals": rows.tolist(),
+               "ticktext": shown, "autorange": "reversed", "showgrid": False},
+        bargap=0.2,
+        showlegend=False,
+    )
+    fig.add_trace(go.Bar(
+        x=sorted_values, y=rows, orientation="h",
+        marker=dict(color=np.where(sorted_values >= 0, POSITIVE_COLOUR, NEGATIVE_COLOUR).tolist(),
+                    line=dict(width=0)),
+        customdata=np.array(shown, dtype=object),
+        hovertemplate="<b>%{customdata}</b><br>loading %{x:.4f}<extra></extra>",
+        name=f"PC{int(component)}",
+    ))
+    if len(names) > 20:
+        fig.update_layout(height=int(min(160 + 20 * len(names), 4000)))
+    return fig
+
+
+def correlation_circle_figure(
+    *,
+    variables: Sequence[str],
+    correlations_x: np.ndarray,
+    correlations_y: np.ndarray,
+    x_title: str,
+    y_title: str,
+    presentation: bool = False,
+) -> go.Figure:
+    """Correlations of each variable with two components, as arrows inside the unit circle.
+
+    Equal axis scales, both axes fixed to :data:`CIRCLE_RANGE`; the unit
+    circle is solid, the radius-0.5 circle dotted. Arrows are annotations in
+    data coordinates from the origin, the variable's name at the tip.
+    """
+    style = style_for(presentation)
+    names = _names(variables)
+    rx = as_float32(correlations_x, "x correlations", len(names))
+    ry = as_float32(correlations_y, "y correlations", len(names))
+    if np.any(np.hypot(rx, ry) > 1.0 + 1e-3):
+        raise OrdinateError("A correlation pair lies outside the unit circle; pass correlations, not loadings.")
+    phi = np.linspace(0.0, 2.0 * np.pi, _CIRCLE_POINTS)
+    circle_x, circle_y = np.cos(phi), np.sin(phi)
+    circle_x[-1], circle_y[-1] = circle_x[0], circle_y[0]
+    fig = new_figure(
+        style,
+        xaxis={**axis_style(x_title), "range": list(CIRCLE_RANGE), "constrain": "domain"},
+        yaxis={**axis_style(y_title), "range": list(CIRCLE_RANGE), "scaleanchor": "x", "scaleratio": 1,
+               "constrain": "domain"},
+        showlegend=False,
+    )
+    for radius, dash, colour in ((1.0, "solid", MUTED_TEXT_COLOUR), (0.5, "dot", AXIS_LINE_COLOUR)):
+        fig.add_trace(go.Scatter(
+            x=(radius * circle_x).astype(np.float32), y=(radius * circle_y).astype(np.float32),
+            mode="lines", line=dict(color=colour, dash=dash, width=style.line_width * 0.75),
+            name=f"radius {radius:g}", hoverinfo="skip",
+        ))
+    # Invisible points at the tips carry the hover text (annotations have none).
+    fig.add_trace(go.Scatter(
+        x=rx, y=ry, mode="markers", marker=dict(size=style.marker_size, color=ARROW_COLOUR, opacity=0.0),
+        customdata=np.array([escape_text(v) for v in names], dtype=object), name="variables",
+        hovertemplate="<b>%{customdata}</b><br>r with x: %{x:.3f}<br>r with y: %{y:.3f}<extra></extra>",
+    ))
+    fig.update_layout(annotations=list(fig.layout.annotations) + arrow_annotations(
+        names, rx, ry, style, labels_inside=True))
+    return fig
