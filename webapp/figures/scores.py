@@ -427,7 +427,10 @@ def scores_figure(
         notes=notes,
         xaxis=axis_style(x_title),
         yaxis={**axis_style(y_title), "scaleanchor": "x", "scaleratio": 1},
-        legend=dict(traceorder="grouped", groupclick="toggleitem"),
+        # Legend below the plot: with an equal aspect ratio, a side legend
+        # would take width the scores need.
+        legend=dict(traceorder="grouped", groupclick="toggleitem", orientation="h",
+                    x=0.0, xanchor="left", y=-0.14, yanchor="top", bgcolor="rgba(255,255,255,0)"),
         dragmode="lasso" if not use_density else "zoom",
     )
 

@@ -192,27 +192,39 @@ def _register_write_url(app) -> None:
         current, _ = parse_query(search)
         if current.dataset is None:
             raise PreventUpdate
+        controls = dict(id_column=id_column, colour=colour, variables_in=variables_in, missing=missing,
+                        centring=centring, scaling=scaling, pc_x=pc_x, pc_y=pc_y, sigma=sigma, ellipse_by=ellipse_by,
+                        overlays=overlays, biplot=biplot, components=components, confidence=confidence,
+                        loading_pc=loading_pc)
         all_variables = [option["value"] for option in variable_options or ()]
-        changes = dict(
-            id_column=None if id_column in (None, AUTO) else id_column,
-            colour_by=None if colour in (None, AUTO) else (NO_COLOUR if colour == NO_COLOUR_VALUE else colour),
-            variables_off=tuple(v for v in all_variables if v not in set(variables_in or ())),
-            missing=missing or current.missing,
-            centring=centring or current.centring,
-            scaling=scaling or current.scaling,
-            pc_x=int(pc_x or current.pc_x),
-            pc_y=int(pc_y or current.pc_y),
-            sigma_levels=vm.parse_sigma_levels(sigma, current.sigma_levels),
-            ellipse_by=ellipse_by or current.ellipse_by,
-            arrows="arrows" in (overlays or ()),
-            hotelling="hotelling" in (overlays or ()),
-            labels="labels" in (overlays or ()),
-            biplot_scaling=biplot or current.biplot_scaling,
-            components=None if components in (None, AUTO) else int(components),
-            confidence=float(confidence or current.confidence),
-            loading_pc=int(loading_pc or current.loading_pc),
-        )
-        return _search_if_changed(current, current.replace(**changes))
+        return _search_if_changed(current, state_from_controls(current, all_variables, **controls))
+
+
+def state_from_controls(current: ViewState, all_variables, *, id_column, colour, variables_in, missing, centring,
+                        scaling, pc_x, pc_y, sigma, ellipse_by, overlays, biplot, components, confidence,
+                        loading_pc) -> ViewState:
+    """The view state the controls describe; fields without a control keep their value."""
+    overlays = overlays or ()
+    chosen = set(variables_in or ())
+    return current.replace(
+        id_column=None if id_column in (None, AUTO) else id_column,
+        colour_by=None if colour in (None, AUTO) else (NO_COLOUR if colour == NO_COLOUR_VALUE else colour),
+        variables_off=tuple(v for v in all_variables if v not in chosen),
+        missing=missing or current.missing,
+        centring=centring or current.centring,
+        scaling=scaling or current.scaling,
+        pc_x=int(pc_x or current.pc_x),
+        pc_y=int(pc_y or current.pc_y),
+        sigma_levels=vm.parse_sigma_levels(sigma, current.sigma_levels),
+        ellipse_by=ellipse_by or current.ellipse_by,
+        arrows="arrows" in overlays,
+        hotelling="hotelling" in overlays,
+        labels="labels" in overlays,
+        biplot_scaling=biplot or current.biplot_scaling,
+        components=None if components in (None, AUTO) else int(components),
+        confidence=float(confidence or current.confidence),
+        loading_pc=int(loading_pc or current.loading_pc),
+    )
 
 
 def _search_if_changed(current: ViewState, new: ViewState):

@@ -71,9 +71,9 @@ def excluded_chips(labels) -> list:
 
 def variance_table(rows: list[dict]) -> html.Table:
     head = html.Thead(html.Tr([
-        html.Th("PC"), html.Th("Eigenvalue"), html.Th("% variance"), html.Th("Cumulative %"),
+        html.Th("PC"), html.Th("Eigenvalue"), html.Th("% var."), html.Th("Cum. %"),
         html.Th("Kaiser", title="Eigenvalue above the mean eigenvalue"),
-        html.Th("Broken stick", title="Share above the broken-stick expectation"),
+        html.Th("Stick", title="Broken stick: share above the broken-stick expectation"),
         html.Th("Parallel", title="Eigenvalue above the 95th percentile of permuted data"),
     ]))
     body = html.Tbody([

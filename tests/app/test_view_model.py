@@ -1,0 +1,139 @@
+"""The view model: from a URL state to what the page shows, without a browser.
+
+Numbers are checked against Fisher's iris as shipped with scikit-learn
+(correlation eigenvalues 2.9185, 0.9140, 0.1468, 0.0207 and covariance PC1
+share 92.46 %, widely published, quoted from memory) and scikit-learn's PCA.
+"""
+
+import numpy as np
+import pytest
+from sklearn.decomposition import PCA
+
+from tests.app.conftest import iris_frame
+from webapp.state import ViewState, parse_query, to_query
+from webapp.ui import view_model as vm
+from webapp.ui.callbacks import state_from_controls
+
+
+def _figure_array(figure, trace_index, axis):
+    return np.asarray(figure.data[trace_index][axis], dtype=float)
+
+
+def test_iris_view_shows_published_eigenvalues(services, iris_token):
+    view = vm.build_view(services, ViewState(dataset=iris_token))
+    assert view.errors == ()
+    assert [round(row["eigenvalue"], 4) for row in view.variance_rows] == [2.9185, 0.9140, 0.1468, 0.0207]
+    assert [round(row["percent"], 2) for row in view.variance_rows] == [72.96, 22.85, 3.67, 0.52]
+    assert view.summary["rows"] == 150 and view.summary["id_column"] == "flower"
+    assert "species" in view.summary["groups"]
+    # Scores plotted are scikit-learn's (up to the sign rule), as float32.
+    frame = iris_frame().iloc[:, 2:].to_numpy()
+    reference = PCA().fit_transform((frame - frame.mean(0)) / frame.std(0, ddof=1))
+    x = np.concatenate([_figure_array(view.scores_figure, i, "x") for i in range(3)])
+    assert np.sort(np.abs(x)) == pytest.approx(np.sort(np.abs(reference[:, 0])), abs=1e-5)
+    assert view.scores_figure.layout.xaxis.title.text == "PC1 · 73.0 %"
+    assert view.scores_figure.layout.yaxis.scaleanchor == "x"
+
+
+def test_scaling_none_gives_covariance_pca(services, iris_token):
+    view = vm.build_view(services, ViewState(dataset=iris_token, scaling="none"))
+    assert view.variance_rows[0]["percent"] == pytest.approx(92.46, abs=0.005)
+
+
+def test_sigma_ellipses_are_labelled_with_expected_coverage(services, iris_token):
+    view = vm.build_view(services, ViewState(dataset=iris_token, sigma_levels=(1.0, 3.0), ellipse_by="all"))
+    names = [trace.name for trace in view.scores_figure.data if trace.name and "ellipse" in trace.name]
+    # 1 - exp(-k²/2): 39.3 % for k = 1, 98.9 % for k = 3 (chi-square, 2 d.f.; any handbook).
+    assert any("1σ" in n and "39.3 %" in n for n in names)
+    assert any("3σ" in n and "98.9 %" in n for n in names)
+
+
+def test_visual_changes_do_not_refit(services, iris_token):
+    state = ViewState(dataset=iris_token)
+    vm.build_view(services, state)
+    assert services.compute.stats() == {"fits": 1, "parses": 1}
+    for change in (dict(pc_x=2, pc_y=3), dict(sigma_levels=(1.0, 2.0, 3.0)), dict(colour_by=""),
+                   dict(arrows=False), dict(labels=True), dict(biplot_scaling="distance"), dict(hotelling=True),
+                   dict(components=3), dict(confidence=0.99), dict(picked="F010"), dict(loading_pc=2)):
+        vm.build_view(services, state.replace(**change))
+    assert services.compute.stats() == {"fits": 1, "parses": 1}
+    vm.build_view(services, state.replace(scaling="pareto"))
+    assert services.compute.stats()["fits"] == 2
+
+
+def test_identical_request_from_another_process_view_reuses_disk_cache(app, services, iris_token, tmp_path):
+    from webapp.app import create_services
+
+    vm.build_view(services, ViewState(dataset=iris_token))
+    other = create_services(services.config)  # a second worker: same data dir, empty memory
+    vm.build_view(other, ViewState(dataset=iris_token))
+    assert other.compute.stats() == {"fits": 1, "parses": 1}
+
+
+def test_unknown_token_raises_not_found(services):
+    with pytest.raises(vm.DatasetNotFound):
+        vm.build_view(services, ViewState(dataset="A" * 24))
+
+
+def test_recipe_error_is_shown_not_raised(services, iris_token):
+    frame = iris_frame()
+    frame.loc[5, "sepal width (cm)"] = -1.0
+    token = services.store.add_bytes(frame.to_csv(index=False).encode(), "neg.csv").token
+    view = vm.build_view(services, ViewState(dataset=token, transforms=(("sepal width (cm)", "log10"),)))
+    assert len(view.errors) == 1 and "sepal width (cm)" in view.errors[0] and "F005" in view.errors[0]
+
+
+def test_out_of_range_components_are_clamped_with_notice(services, iris_token):
+    view = vm.build_view(services, ViewState(dataset=iris_token, pc_x=7, components=9))
+    assert view.pc_x == 4
+    assert any("PC4 instead of PC7" in n for n in view.notices)
+    assert any("K = 9" in n for n in view.notices)
+
+
+def test_picked_sample_shows_contributions(services, iris_token):
+    view = vm.build_view(services, ViewState(dataset=iris_token, picked="F041", components=2))
+    assert view.contributions is not None
+    text = str(view.contributions)
+    assert "F041" in text
+
+
+def test_exclusions_and_variable_choices_reach_the_fit(services, iris_token):
+    state = ViewState(dataset=iris_token, excluded=("F000", "F001"), variables_off=("sepal width (cm)",))
+    view = vm.build_view(services, state)
+    assert view.provenance["Samples used"] == "148 of 150"
+    assert "sepal width" not in view.provenance["Variables used"]
+    assert view.controls.variables_in == ["sepal length (cm)", "petal length (cm)", "petal width (cm)"]
+
+
+def test_controls_round_trip_through_the_url(services, iris_token):
+    state = ViewState(dataset=iris_token, scaling="pareto", sigma_levels=(1.0, 2.5), hotelling=True, colour_by="")
+    view = vm.build_view(services, state)
+    controls = dict(id_column="auto", colour="__none__", variables_in=view.controls.variables_in,
+                    missing=state.missing, centring=state.centring, scaling=state.scaling, pc_x=1, pc_y=2,
+                    sigma="1, 2.5", ellipse_by="group", overlays=["arrows", "hotelling"], biplot="correlation",
+                    components="auto", confidence=0.95, loading_pc=1)
+    all_variables = [o["value"] for o in view.controls.variable_options]
+    assert state_from_controls(state, all_variables, **controls) == state
+    changed = state_from_controls(state, all_variables, **{**controls, "sigma": "3", "scaling": "unit"})
+    assert changed.sigma_levels == (3.0,) and changed.scaling == "unit"
+    assert parse_query(to_query(changed))[0] == changed
+
+
+def test_bad_sigma_text_keeps_previous_levels():
+    assert vm.parse_sigma_levels("1, two", (2.0,)) == (2.0,)
+    assert vm.parse_sigma_levels("-1", (2.0,)) == (2.0,)
+    assert vm.parse_sigma_levels("3; 1", (2.0,)) == (1.0, 3.0)
+
+
+def test_variable_correlations_match_numpy(services, iris_token):
+    resolved = vm.resolve(services, ViewState(dataset=iris_token))
+    ours = vm.variable_correlations(resolved.fitted)
+    X, T = resolved.fitted.prepared.matrix, resolved.fitted.pca.scores
+    expected = np.array([[np.corrcoef(X[:, j], T[:, a])[0, 1] for a in range(4)] for j in range(4)])
+    np.testing.assert_allclose(ours, expected, atol=1e-10)
+
+
+def test_variance_csv_download(services, iris_token):
+    text, name = vm.variance_csv(services, ViewState(dataset=iris_token))
+    assert name == "iris-variance-explained.csv"
+    assert "2.9185" in text.splitlines()[1]
