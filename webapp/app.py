@@ -53,6 +53,7 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
         assets_folder=str(ASSETS),
         suppress_callback_exceptions=True,
         update_title=None,
+        compress=True,  # gzip callback responses: figure payloads shrink several-fold on the wire
     )
     app.layout = build_layout(config)
     register_callbacks(app, services)

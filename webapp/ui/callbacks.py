@@ -325,8 +325,9 @@ def _register_actions(app, services) -> None:
 
 def _register_clientside(app) -> None:
     app.clientside_callback(
-        "function(href) { return href || window.location.href; }",
+        # From `search`, not `href`: a callback that sets `search` leaves `href` stale.
+        "function(search) { return window.location.origin + window.location.pathname + (search || ''); }",
         Output(L.LINK_TEXT, "value"),
-        Input(L.URL, "href"),
+        Input(L.URL, "search"),
     )
 

@@ -1,0 +1,157 @@
+"""The dashboard in headless Chromium, driven as a user would (dash[testing]).
+
+Reference values: Fisher's iris as shipped with scikit-learn. Correlation-matrix
+eigenvalues 2.9185 / 0.9140 (72.96 % / 22.85 %) and covariance-matrix PC1 share
+92.46 % are widely published (quoted from memory; the engine's agreement with
+scikit-learn is tested in tests/analysis). Sigma-ellipse coverage 1 - exp(-k²/2):
+39.3 % for k = 1, 98.9 % for k = 3 (chi-square with 2 degrees of freedom).
+"""
+
+import json
+import time
+
+import pytest
+from selenium import webdriver
+from selenium.webdriver.common.by import By
+from selenium.webdriver.common.keys import Keys
+
+from tests.app.conftest import iris_frame
+from tests.conftest import pytest_setup_options
+from webapp.app import create_app
+from webapp.config import AppConfig
+
+pytestmark = pytest.mark.browser
+
+FIRST_EIGENVALUE = "#variance-table-element tbody tr:nth-child(1) td:nth-child(2)"
+FIRST_PERCENT = "#variance-table-element tbody tr:nth-child(1) td:nth-child(3)"
+TIMEOUT = 40
+
+FIGURE_DATA_JS = """
+const plot = document.querySelector('#scores-graph .js-plotly-plot');
+if (!plot || !plot.data) { return null; }
+return JSON.stringify(plot.data.map(t => [t.name || '', Array.from(t.x || []), Array.from(t.y || [])]));
+"""
+
+
+@pytest.fixture
+def app(tmp_path):
+    return create_app(AppConfig(data_dir=tmp_path / "data", max_upload_mb=5))
+
+
+@pytest.fixture
+def iris_csv(tmp_path):
+    path = tmp_path / "iris.csv"
+    iris_frame().to_csv(path, index=False)
+    return path
+
+
+def _upload(dash_duo, path):
+    dash_duo.wait_for_element("#upload-input", timeout=TIMEOUT).send_keys(str(path))
+
+
+def _open_with_iris(dash_duo, app, iris_csv):
+    dash_duo.start_server(app)
+    dash_duo.wait_for_element("#scores-graph .js-plotly-plot", timeout=TIMEOUT)
+    _upload(dash_duo, iris_csv)
+    dash_duo.wait_for_text_to_equal(FIRST_EIGENVALUE, "2.9185", timeout=TIMEOUT)
+
+
+def _legend_text(dash_duo) -> str:
+    return " ".join(e.text for e in dash_duo.find_elements("#scores-graph .legendtext"))
+
+
+def _wait_for(condition, timeout=TIMEOUT):
+    end = time.time() + timeout
+    while time.time() < end:
+        value = condition()
+        if value:
+            return value
+        time.sleep(0.25)
+    raise AssertionError("condition not met in time")
+
+
+def test_upload_shows_variance_table_and_scaling_change_and_back(dash_duo, app, iris_csv):
+    _open_with_iris(dash_duo, app, iris_csv)
+    dash_duo.wait_for_text_to_equal(FIRST_PERCENT, "72.96", timeout=TIMEOUT)
+    assert "iris.csv" in dash_duo.find_element("#dataset-title").text
+    with_unit_scaling = dash_duo.driver.current_url
+    assert "scale=unit" in with_unit_scaling
+
+    dash_duo.find_element("#scaling input[value='none']").click()
+    dash_duo.wait_for_text_to_equal(FIRST_PERCENT, "92.46", timeout=TIMEOUT)
+    assert "scale=none" in dash_duo.driver.current_url
+
+    dash_duo.driver.back()
+    dash_duo.wait_for_text_to_equal(FIRST_PERCENT, "72.96", timeout=TIMEOUT)
+    assert dash_duo.driver.current_url == with_unit_scaling
+    assert dash_duo.get_logs() == [] or all("favicon" in entry["message"] for entry in dash_duo.get_logs())
+
+
+def test_sigma_levels_draw_labelled_ellipses(dash_duo, app, iris_csv):
+    _open_with_iris(dash_duo, app, iris_csv)
+    sigma = dash_duo.find_element("#sigma-levels")
+    sigma.send_keys(Keys.CONTROL, "a")
+    sigma.send_keys("1, 3", Keys.ENTER)
+    legend = _wait_for(lambda: "98.9 %" in _legend_text(dash_duo) and _legend_text(dash_duo))
+    assert "1σ ellipse · expected 39.3 %" in legend
+    assert "3σ ellipse · expected 98.9 %" in legend
+    assert "sigma=1,3" in dash_duo.driver.current_url
+
+
+def test_link_reopens_identical_view_in_a_fresh_browser(dash_duo, app, iris_csv):
+    _open_with_iris(dash_duo, app, iris_csv)
+    dash_duo.find_element("#scaling input[value='pareto']").click()
+    _wait_for(lambda: "scale=pareto" in dash_duo.driver.current_url)
+    table = _wait_for(lambda: dash_duo.find_element(FIRST_EIGENVALUE).text != "2.9185"
+                      and dash_duo.find_element("#variance-table-element").text)
+    link = dash_duo.find_element("#link-text").get_attribute("value")
+    assert link == dash_duo.driver.current_url
+    figure = _wait_for(lambda: dash_duo.driver.execute_script(FIGURE_DATA_JS))
+
+    fresh = webdriver.Chrome(options=_headless_options())
+    try:
+        fresh.get(link)
+        _wait_for(lambda: _text(fresh, "#variance-table-element") == table)
+        fresh_figure = _wait_for(lambda: fresh.execute_script(FIGURE_DATA_JS))
+        assert json.loads(fresh_figure) == json.loads(figure)
+    finally:
+        fresh.quit()
+
+
+def test_bad_file_shows_a_message_and_the_server_keeps_serving(dash_duo, app, iris_csv, tmp_path):
+    dash_duo.start_server(app)
+    dash_duo.wait_for_element("#scores-graph .js-plotly-plot", timeout=TIMEOUT)
+    bad = tmp_path / "photo.csv"
+    bad.write_bytes(b"\x89PNG\r\n\x1a\n" + bytes(range(256)) * 4)
+    _upload(dash_duo, bad)
+    status = _wait_for(lambda: "is-error" in dash_duo.find_element("#upload-status").get_attribute("class")
+                       and dash_duo.find_element("#upload-status").text)
+    assert "Traceback" not in status and len(status) > 20
+    notices = _wait_for(lambda: dash_duo.find_element("#notices").text)
+    assert status.split(".")[0] in notices
+    _upload(dash_duo, iris_csv)  # still serving
+    dash_duo.wait_for_text_to_equal(FIRST_EIGENVALUE, "2.9185", timeout=TIMEOUT)
+
+
+def test_tampered_and_unknown_links(dash_duo, app, iris_csv):
+    _open_with_iris(dash_duo, app, iris_csv)
+    url = dash_duo.driver.current_url.replace("scale=unit", "scale=banana")
+    dash_duo.driver.get(url)
+    notices = _wait_for(lambda: dash_duo.find_element("#notices").text)
+    assert "scale=banana" in notices
+    dash_duo.wait_for_text_to_equal(FIRST_EIGENVALUE, "2.9185", timeout=TIMEOUT)
+    dash_duo.driver.get(dash_duo.server_url + "/?v=1&ds=" + "Z" * 24)
+    dash_duo.wait_for_contains_text("#not-found", "not known here", timeout=TIMEOUT)
+
+
+def _text(driver, selector):
+    try:
+        return driver.find_element(By.CSS_SELECTOR, selector).text
+    except Exception:
+        return ""
+
+
+def _headless_options():
+    options = pytest_setup_options()
+    options.add_argument("--headless=new")
+    return options
