@@ -17,6 +17,10 @@ class AppConfig:
     max_upload_mb: float = 200.0
     demo_dataset: Path | None = DEMO_DATASET
     title: str = "Ordinate"
+    # Access control (see docs/deployment.md): a shared key that team members
+    # enter once; None with require_access_key False means open (loopback only).
+    access_key: str | None = None
+    require_access_key: bool = False
 
     @property
     def max_upload_bytes(self) -> int:

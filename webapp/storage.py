@@ -16,6 +16,7 @@ worker processes.
 from __future__ import annotations
 
 import hashlib
+import hmac
 import os
 import re
 import secrets
@@ -49,10 +50,27 @@ class DatasetRecord:
     size_bytes: int
     created: float
     title: str = ""
+    manage_key: str = ""  # second secret: only its holder may rename or delete
 
     @property
     def display_name(self) -> str:
         return self.title or self.filename
+
+
+@dataclass(frozen=True)
+class SavedView:
+    """An immutable snapshot of a view: the state's query string plus words about it."""
+
+    view_id: str
+    dataset_token: str
+    query: str  # the view state as written by state.to_query at save time (its version inside)
+    title: str
+    note: str  # Markdown source, rendered safely (no raw HTML)
+    author: str
+    created: float
+    content_hash: str  # dataset fingerprint when saved
+    engine_version: str
+    parent: str | None = None  # the view this one was duplicated from
 
 
 def new_token() -> str:
@@ -108,9 +126,76 @@ class DataStore:
         return self._register(content_hash, filename, size, title)
 
     def _register(self, content_hash: str, filename: str, size: int, title: str) -> DatasetRecord:
-        record = DatasetRecord(new_token(), content_hash, _clean_filename(filename), size, time.time(), title)
-        self.index.set(("dataset", record.token), asdict(record))
+        record = DatasetRecord(new_token(), content_hash, _clean_filename(filename), size, time.time(),
+                               _clean_text(title, 200), new_token())
+        with self.index.transact():
+            self.index.set(("dataset", record.token), asdict(record))
+            self.index.set(("blob-users", content_hash), self.index.get(("blob-users", content_hash), 0) + 1)
         return record
+
+    # --- saved views ----------------------------------------------------------
+
+    def save_view(self, dataset_token: str, query: str, *, title: str, note: str = "", author: str = "",
+                  content_hash: str, engine_version: str, parent: str | None = None) -> SavedView:
+        """Store a new immutable view; safe against concurrent saves from other processes."""
+        if self.dataset(dataset_token) is None:
+            raise KeyError(dataset_token)
+        view = SavedView(new_token(), dataset_token, query, _clean_text(title, 200) or "Untitled view",
+                         _clean_text(note, 20_000, keep_newlines=True), _clean_text(author, 100), time.time(),
+                         content_hash, engine_version, parent if is_token(parent) else None)
+        # One SQLite transaction: the view and its place in the list appear together or not at all.
+        with self.index.transact():
+            self.index.set(("view", view.view_id), asdict(view))
+            order = self.index.get(("views-of", dataset_token), ())
+            self.index.set(("views-of", dataset_token), (*order, view.view_id))
+        return view
+
+    def view(self, view_id: object) -> SavedView | None:
+        if not is_token(view_id):
+            return None
+        data = self.index.get(("view", view_id))
+        return SavedView(**data) if data else None
+
+    def views_for_dataset(self, dataset_token: str) -> list[SavedView]:
+        """Saved views of a dataset, oldest first."""
+        ids = self.index.get(("views-of", dataset_token), ()) if is_token(dataset_token) else ()
+        views = [self.view(view_id) for view_id in ids]
+        return [v for v in views if v is not None]
+
+    # --- management (holders of the manage key only) -----------------------------
+
+    def check_manage_key(self, dataset_token: str, key: object) -> bool:
+        record = self.dataset(dataset_token)
+        return bool(record and record.manage_key and isinstance(key, str)
+                    and hmac.compare_digest(record.manage_key.encode(), key.encode()))
+
+    def rename_dataset(self, dataset_token: str, title: str) -> DatasetRecord | None:
+        with self.index.transact():
+            record = self.dataset(dataset_token)
+            if record is None:
+                return None
+            data = {**asdict(record), "title": _clean_text(title, 200)}
+            self.index.set(("dataset", dataset_token), data)
+        return DatasetRecord(**data)
+
+    def delete_dataset(self, dataset_token: str) -> bool:
+        """Forget a dataset and all its views; remove its file when no other record uses it."""
+        with self.index.transact():
+            record = self.dataset(dataset_token)
+            if record is None:
+                return False
+            for view_id in self.index.get(("views-of", dataset_token), ()):
+                self.index.delete(("view", view_id))
+            self.index.delete(("views-of", dataset_token))
+            self.index.delete(("dataset", dataset_token))
+            users = self.index.get(("blob-users", record.content_hash), 1) - 1
+            if users > 0:
+                self.index.set(("blob-users", record.content_hash), users)
+            else:
+                self.index.delete(("blob-users", record.content_hash))
+        if users <= 0:
+            self._blob_path(record.content_hash).unlink(missing_ok=True)
+        return True
 
     # --- reading ------------------------------------------------------------
 
@@ -168,6 +253,13 @@ class _TemporaryFile:
         if exc_type is not None and os.path.exists(self.path):
             os.unlink(self.path)
         return False
+
+
+def _clean_text(text: object, limit: int, *, keep_newlines: bool = False) -> str:
+    """User text for titles and notes: no control characters, bounded length."""
+    allowed = "\n\t" if keep_newlines else ""
+    text = "".join(ch for ch in str(text or "") if ch.isprintable() or ch in allowed)
+    return text.strip()[:limit]
 
 
 def _clean_filename(name: str) -> str:
