@@ -8,6 +8,7 @@ processes (production) coexist safely. Workers share only the data directory.
 
 from __future__ import annotations
 
+import html
 import logging
 from dataclasses import dataclass
 from pathlib import Path
@@ -19,7 +20,7 @@ from webapp import __version__
 from webapp.analysis.errors import OrdinateError
 from webapp.compute import ComputeLayer
 from webapp.config import DEMO_TITLE, AppConfig
-from webapp.state import ViewState, to_query
+from webapp.state import ViewState, parse_query, to_query
 from webapp.storage import DataStore
 from webapp.ui.callbacks import register_callbacks
 from webapp.ui.layout import build_layout
@@ -61,6 +62,7 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
                           inspect=lambda record: _inspect_upload(services, record))
     _ensure_demo(services)
     _register_start_page(app, services)
+    _register_short_links(app, services)
     app.server.config["ordinate.services"] = services
     return app
 
@@ -91,6 +93,31 @@ def _register_start_page(app: dash.Dash, services: Services) -> None:
         if token and services.store.dataset(token):
             return redirect("/?" + to_query(ViewState(dataset=token)), code=302)
         return None
+
+
+def _register_short_links(app: dash.Dash, services: Services) -> None:
+    """/v/<id>: a saved view's short link, redirecting to its full, current-format URL."""
+
+    @app.server.route("/v/<view_id>")
+    def open_saved_view(view_id: str):
+        view = services.store.view(view_id)
+        if view is None:
+            return _plain_page("Saved view not found",
+                               "This saved view is not known here. The link may be mistyped or cut short, "
+                               "or its dataset was deleted by its owner."), 404
+        # parse_query upgrades links written by older versions of the URL format.
+        state, _ = parse_query(view.query)
+        state = state.replace(dataset=view.dataset_token, saved_view=view.view_id, present=False)
+        return redirect("/?" + to_query(state), code=302)
+
+
+def _plain_page(title: str, message: str) -> str:
+    return (
+        "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>Ordinate</title>"
+        "<link rel='stylesheet' href='/assets/ordinate.css'></head><body>"
+        f"<main class='card not-found-card'><h2>{html.escape(title)}</h2><p>{html.escape(message)}</p>"
+        "<p><a class='small-button' href='/'>Open the start page</a></p></main></body></html>"
+    )
 
 
 __all__ = ["create_app", "create_services", "Services", "OrdinateError", "__version__"]

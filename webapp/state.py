@@ -163,6 +163,12 @@ def _check_confidence(value: Any) -> float:
     return value
 
 
+def _check_view_id(value: Any) -> str | None:
+    if value is None or (isinstance(value, str) and _TOKEN_PATTERN.fullmatch(value)):
+        return value
+    raise ViewStateError(f"saved_view must be None or a link code; got {value!r}.")
+
+
 def _check_sigma_levels(values: Any) -> tuple[float, ...]:
     levels: set[float] = set()
     for value in values:
@@ -245,6 +251,7 @@ class ViewState:
     labels: bool = False
     loading_pc: int = 1
     picked: str | None = None
+    saved_view: str | None = None
     present: bool = False
     slide: int = 1
 
@@ -278,11 +285,16 @@ class ViewState:
             "labels": _check_bool(self.labels, "labels"),
             "loading_pc": _check_int(self.loading_pc, 1, MAX_PC, "loading_pc"),
             "picked": _check_optional_text(self.picked, "picked"),
+            "saved_view": _check_view_id(self.saved_view),
             "present": _check_bool(self.present, "present"),
             "slide": _check_int(self.slide, 1, MAX_SLIDE, "slide"),
         }
         for name, value in canonical.items():
             object.__setattr__(self, name, value)
+
+    def unsaved(self) -> ViewState:
+        """This view detached from the saved view it was opened from (after any change)."""
+        return dataclasses.replace(self, saved_view=None)
 
     def replace(self, **changes: Any) -> ViewState:
         """A validated copy with ``changes`` applied; raises ``ViewStateError`` for invalid values."""
@@ -500,6 +512,7 @@ PARAMETERS: tuple[UrlParameter, ...] = (
     UrlParameter("labels", "labels", "drawing", _read_flag, _write_flag),
     UrlParameter("lpc", "loading_pc", "drawing", _read_whole(1, MAX_PC), str),
     UrlParameter("pick", "picked", "drawing", _read_optional_label, _write_optional),
+    UrlParameter("view", "saved_view", "drawing", _read_token, _write_optional),
     UrlParameter("present", "present", "drawing", _read_flag, _write_flag),
     UrlParameter("slide", "slide", "drawing", _read_whole(1, MAX_SLIDE), str),
 )

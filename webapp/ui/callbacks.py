@@ -35,7 +35,10 @@ NO_COLOUR_VALUE = "__none__"
 
 
 def register_callbacks(app, services) -> None:
+    from webapp.ui.sharing import register_sharing_callbacks
+
     _register_show_view(app, services)
+    register_sharing_callbacks(app, services)
     _register_write_url(app)
     _register_actions(app, services)
     _register_clientside(app)
@@ -94,8 +97,9 @@ def _register_show_view(app, services) -> None:
     @app.callback(_VIEW_OUTPUTS, Input(L.URL, "search"))
     def show_view(search):
         state, notices = parse_query(search)
+        shown, _slides, slide_notices = vm.effective_state(services, state)
         try:
-            view = vm.build_view(services, state, notices)
+            view = vm.build_view(services, shown, notices + slide_notices)
         except vm.DatasetNotFound:
             return _not_found_outputs(notices)
         return _view_outputs(view)
@@ -190,8 +194,8 @@ def _register_write_url(app) -> None:
     def write_url(id_column, colour, variables_in, missing, centring, scaling, pc_x, pc_y, sigma, ellipse_by,
                   overlays, biplot, components, confidence, loading_pc, variable_options, search):
         current, _ = parse_query(search)
-        if current.dataset is None:
-            raise PreventUpdate
+        if current.dataset is None or current.present:
+            raise PreventUpdate  # in presentation mode the controls show the slide, not the URL
         controls = dict(id_column=id_column, colour=colour, variables_in=variables_in, missing=missing,
                         centring=centring, scaling=scaling, pc_x=pc_x, pc_y=pc_y, sigma=sigma, ellipse_by=ellipse_by,
                         overlays=overlays, biplot=biplot, components=components, confidence=confidence,
@@ -228,9 +232,10 @@ def state_from_controls(current: ViewState, all_variables, *, id_column, colour,
 
 
 def _search_if_changed(current: ViewState, new: ViewState):
-    if new == current:
+    """The new URL, or no update. Any change detaches the view from the saved view it came from."""
+    if new == current or current.present:
         raise PreventUpdate
-    return "?" + to_query(new)
+    return "?" + to_query(new.unsaved())
 
 
 # --- actions: exclusions, transforms, picking, upload ------------------------------------------

@@ -65,6 +65,26 @@ LOADINGS_GRAPH = "loadings-graph"
 CIRCLE_GRAPH = "circle-graph"
 PROVENANCE = "provenance"
 
+APP_ROOT = "app-root"
+ORIGIN_VIEW = "origin-view"
+SAVE_OPEN = "save-open"
+SAVE_PANEL = "save-panel"
+SAVE_TITLE = "save-title"
+SAVE_NOTE = "save-note"
+SAVE_AUTHOR = "save-author"
+SAVE_CONFIRM = "save-confirm"
+SAVE_CANCEL = "save-cancel"
+SAVE_RESULT = "save-result"
+SAVED_BANNER = "saved-banner"
+SAVED_LIST = "saved-list"
+PRESENT_OPEN = "present-open"
+PRESENT_BAR = "present-bar"
+SLIDE_PREV = "slide-prev"
+SLIDE_NEXT = "slide-next"
+SLIDE_POSITION = "slide-position"
+PRESENT_EXIT = "present-exit"
+FULL_SCREEN = "full-screen"
+
 CONFIDENCE_CHOICES = (0.9, 0.95, 0.99, 0.999)
 _WORDS = {
     "drop": "Leave samples out",
@@ -82,11 +102,15 @@ _WORDS = {
 
 def build_layout(config) -> html.Div:
     return html.Div(
+        id=APP_ROOT,
         className="ordinate",
         children=[
             dcc.Location(id=URL, refresh=False),
             dcc.Store(id=UPLOAD_RESULT),
+            dcc.Store(id=ORIGIN_VIEW, storage_type="session"),
             _top_bar(config),
+            _save_panel(),
+            _present_bar(),
             html.Div(id=NOTICES, className="notices", role="status", **{"aria-live": "polite"}),
             html.Div(id=NOT_FOUND, className="not-found", hidden=True),
             html.Div(id=WORKSPACE, className="workspace", children=[_recipe_rail(), _cards()]),
@@ -122,6 +146,11 @@ def _top_bar(config) -> html.Header:
                 ],
             ),
             html.Div(id="upload-status", className="upload-status", role="status", **{"aria-live": "polite"}),
+            html.Div(className="view-actions", children=[
+                html.Button("Save view", id=SAVE_OPEN, n_clicks=0, className="bar-button"),
+                html.Button("Present", id=PRESENT_OPEN, n_clicks=0, className="bar-button",
+                            title="Step through this dataset's saved views, full screen"),
+            ]),
             html.Div(className="share", children=[
                 html.Label([html.Span("Link to this view", className="visually-hidden"),
                             dcc.Input(id=LINK_TEXT, readOnly=True, className="link-text")]),
@@ -130,6 +159,34 @@ def _top_bar(config) -> html.Header:
             ]),
         ],
     )
+
+
+def _save_panel() -> html.Section:
+    return html.Section(id=SAVE_PANEL, className="save-panel", hidden=True, **{"aria-label": "Save this view"}, children=[
+        html.H2("Save this view"),
+        html.P("A saved view never changes: its short link reopens exactly this analysis, for anyone who has the link.",
+               className="quiet"),
+        _field("Title", dcc.Input(id=SAVE_TITLE, type="text", maxLength=200, className="text-input",
+                                  placeholder="e.g. Site comparison, PC1–PC2")),
+        _field("Note (Markdown)", dcc.Textarea(id=SAVE_NOTE, maxLength=20000, className="note-input",
+                                               placeholder="What the team should see in this view")),
+        _field("Your name (optional)", dcc.Input(id=SAVE_AUTHOR, type="text", maxLength=100, className="text-input")),
+        html.Div(className="save-actions", children=[
+            html.Button("Save", id=SAVE_CONFIRM, n_clicks=0, className="primary-button"),
+            html.Button("Close", id=SAVE_CANCEL, n_clicks=0, className="small-button"),
+        ]),
+        html.Div(id=SAVE_RESULT, className="save-result", role="status"),
+    ])
+
+
+def _present_bar() -> html.Nav:
+    return html.Nav(id=PRESENT_BAR, className="present-bar", hidden=True, **{"aria-label": "Presentation"}, children=[
+        html.Button("◀ Previous", id=SLIDE_PREV, n_clicks=0, className="bar-button", title="Previous view (←)"),
+        html.Span(id=SLIDE_POSITION, className="slide-position"),
+        html.Button("Next ▶", id=SLIDE_NEXT, n_clicks=0, className="bar-button", title="Next view (→)"),
+        html.Button("Full screen", id=FULL_SCREEN, n_clicks=0, className="bar-button", title="Full screen (F)"),
+        html.Button("Leave presentation", id=PRESENT_EXIT, n_clicks=0, className="bar-button"),
+    ])
 
 
 def _recipe_rail() -> html.Aside:
@@ -168,7 +225,11 @@ def _recipe_rail() -> html.Aside:
 
 def _cards() -> html.Main:
     return html.Main(className="cards", children=[
+        html.Section(id=SAVED_BANNER, className="card saved-banner", hidden=True),
         _scores_card(), _variance_card(), _diagnostics_card(), _loadings_card(),
+        html.Section(className="card saved-card", children=[
+            html.H2("Saved views of this dataset"), html.Div(id=SAVED_LIST),
+        ]),
         html.Section(className="card provenance-card", children=[
             html.H2("Provenance"), html.Div(id=PROVENANCE),
         ]),

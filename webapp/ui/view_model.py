@@ -8,6 +8,8 @@ unpack the result, so this module is where the app's behaviour is tested.
 
 from __future__ import annotations
 
+import re
+import time
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -33,7 +35,7 @@ from webapp.figures import (
     variance_table_rows,
     variance_table_tsv,
 )
-from webapp.state import NO_COLOUR, MAX_SIGMA, MAX_SIGMA_LEVELS, ViewState
+from webapp.state import MAX_SIGMA, MAX_SIGMA_LEVELS, NO_COLOUR, ViewState, parse_query, to_query
 
 HOVER_VARIABLES = 6
 MAX_TABLE_COMPONENTS = 20
@@ -178,23 +180,23 @@ def _full_view(state: ViewState, resolved: Resolved, summary: dict, parse_notice
             eigenvalues=pca.eigenvalues, explained_ratio=pca.explained_variance_ratio,
             cumulative=pca.cumulative_explained, broken_stick=fitted.advice.broken_stick_expectation,
             parallel_threshold=fitted.advice.parallel_threshold, mean_eigenvalue=pca.total_variance / pca.n_variables,
-            components=diagnostics.components, total_variance=pca.total_variance,
+            components=diagnostics.components, total_variance=pca.total_variance, presentation=state.present,
         ),
         variance_tsv=variance_table_tsv(rows),
         advice_text=advice_text(fitted.advice, diagnostics.components, state.components is None),
         diagnostics_figure=diagnostics_figure(
             t2=diagnostics.t2, q=diagnostics.q, labels=np.asarray(fitted.prepared.sample_labels, dtype=object),
             groups=groups, t2_limit=diagnostics.t2_limit, q_limit=diagnostics.q_limit,
-            confidence=diagnostics.confidence, highlighted=state.picked,
+            confidence=diagnostics.confidence, highlighted=state.picked, presentation=state.present,
         ),
         flagged=flagged_samples(fitted.prepared.sample_labels, diagnostics.t2, diagnostics.q,
                                 diagnostics.t2_limit, diagnostics.q_limit),
         contributions=_contributions(state, fitted, diagnostics),
         loadings_figure=loadings_bar_figure(
             variables=fitted.prepared.variables, loadings=pca.loadings[:, loading_pc - 1], component=loading_pc,
-            explained_ratio=float(pca.explained_variance_ratio[loading_pc - 1]),
+            explained_ratio=float(pca.explained_variance_ratio[loading_pc - 1]), presentation=state.present,
         ),
-        circle_figure=_circle(fitted, pc_x, pc_y),
+        circle_figure=_circle(fitted, pc_x, pc_y, state.present),
         provenance=provenance(resolved, diagnostics, colour_column),
     )
 
@@ -318,7 +320,7 @@ def _scores_panel(state: ViewState, fitted, table, groups, pc_x: int, pc_y: int)
         x=x, y=y, labels=np.asarray(prepared.sample_labels, dtype=object), groups=groups,
         x_title=axis_title(pc_x, float(ratios[pc_x - 1])), y_title=axis_title(pc_y, float(ratios[pc_y - 1])),
         hover_values=hover, ellipses=ellipses, ellipse_groups=owners, arrows=arrows,
-        show_labels=state.labels, highlighted=state.picked,
+        show_labels=state.labels, highlighted=state.picked, presentation=state.present,
     )
 
 
@@ -356,7 +358,7 @@ def _contributions(state: ViewState, fitted, diagnostics):
         variables=fitted.prepared.variables,
         t2_contributions=t2_contributions(x_row, loadings, fitted.pca.eigenvalues[:k]),
         q_residuals=q_residual_row(x_row, loadings),
-        label=state.picked,
+        label=state.picked, presentation=state.present,
     )
     return html.Div([
         html.Div(className="contributions-head", children=[
@@ -370,13 +372,14 @@ def _contributions(state: ViewState, fitted, diagnostics):
     ])
 
 
-def _circle(fitted, pc_x: int, pc_y: int) -> go.Figure:
+def _circle(fitted, pc_x: int, pc_y: int, presentation: bool) -> go.Figure:
     correlations = variable_correlations(fitted)
     ratios = fitted.pca.explained_variance_ratio
     return correlation_circle_figure(
         variables=fitted.prepared.variables,
         correlations_x=correlations[:, pc_x - 1], correlations_y=correlations[:, pc_y - 1],
         x_title=axis_title(pc_x, float(ratios[pc_x - 1])), y_title=axis_title(pc_y, float(ratios[pc_y - 1])),
+        presentation=presentation,
     )
 
 
@@ -456,3 +459,96 @@ def variance_csv(services, state: ViewState) -> tuple[str, str]:
     )
     stem = resolved.record.filename.rsplit(".", 1)[0] or "data"
     return variance_table_csv(rows), f"{stem}-variance-explained.csv"
+
+
+# --- saved views and presentation ------------------------------------------------------------
+
+NO_SLIDES_NOTICE = "This dataset has no saved views yet, so the current view is shown. Save views to step through them."
+
+
+@dataclass(frozen=True)
+class Slides:
+    position: int
+    count: int
+
+
+def effective_state(services, state: ViewState) -> tuple[ViewState, Slides | None, tuple[str, ...]]:
+    """The state to draw: in presentation mode, the saved view at the slide position."""
+    if not state.present:
+        return state, None, ()
+    views = services.store.views_for_dataset(state.dataset) if state.dataset else []
+    if not views:
+        return state, Slides(1, 1), (NO_SLIDES_NOTICE,)
+    position = min(max(state.slide, 1), len(views))
+    view = views[position - 1]
+    saved, notices = parse_query(view.query)
+    shown = saved.replace(dataset=state.dataset, present=True, slide=position, saved_view=view.view_id)
+    return shown, Slides(position, len(views)), notices
+
+
+def saved_view_info(services, state: ViewState) -> dict | None:
+    """Title, note and provenance of the saved view a state was opened from."""
+    if state.saved_view is None:
+        return None
+    view = services.store.view(state.saved_view)
+    if view is None or view.dataset_token != state.dataset:
+        return None
+    return {
+        "view_id": view.view_id,
+        "title": view.title,
+        "note": safe_markdown(view.note),
+        "author": view.author,
+        "saved": _utc(view.created),
+        "engine_version": view.engine_version,
+        "content_hash": view.content_hash,
+        "outdated_engine": view.engine_version != ENGINE_VERSION,
+        "parent": view.parent,
+    }
+
+
+def saved_views_list(services, dataset_token: str | None) -> list[dict]:
+    if not dataset_token:
+        return []
+    return [
+        {"view_id": v.view_id, "title": v.title, "note": _preview(v.note), "author": v.author,
+         "saved": _utc(v.created), "position": i + 1}
+        for i, v in enumerate(services.store.views_for_dataset(dataset_token))
+    ]
+
+
+def save_view(services, state: ViewState, *, title: str, note: str, author: str, parent: str | None):
+    """Store the current view as a new immutable saved view."""
+    record = services.store.dataset(state.dataset)
+    if record is None:
+        raise DatasetNotFound(state.dataset)
+    snapshot = state.replace(saved_view=None, present=False, slide=1)
+    return services.store.save_view(
+        record.token, to_query(snapshot), title=title, note=note, author=author,
+        content_hash=record.content_hash, engine_version=ENGINE_VERSION, parent=parent,
+    )
+
+
+_UNSAFE_LINK = re.compile(
+    r"\]\(\s*<?\s*(?:javascript|vbscript|data|file)\s*:(?:[^()]|\([^()]*\))*\)", re.IGNORECASE
+)
+_UNSAFE_AUTOLINK = re.compile(r"<\s*(?:javascript|vbscript|data|file)\s*:[^>]*>", re.IGNORECASE)
+
+
+def safe_markdown(text: str) -> str:
+    """Markdown source with script-capable link targets removed.
+
+    Rendered by dcc.Markdown without raw HTML (dangerously_allow_html stays
+    False), so tags show as text; this removes the remaining route, links
+    whose target is javascript:, vbscript:, data: or file:.
+    """
+    text = _UNSAFE_LINK.sub("](#removed-link)", text or "")
+    return _UNSAFE_AUTOLINK.sub("(removed link)", text)
+
+
+def _preview(note: str, limit: int = 140) -> str:
+    flat = " ".join((note or "").split())
+    return flat if len(flat) <= limit else flat[: limit - 1] + "…"
+
+
+def _utc(timestamp: float) -> str:
+    return time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime(timestamp))

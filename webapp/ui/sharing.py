@@ -1,0 +1,213 @@
+"""Callbacks for saved views and presentation mode.
+
+A saved view is an immutable snapshot (``DataStore.save_view``) reached by a
+short link ``/v/<id>`` (see ``webapp.app``), which redirects to the full view
+URL with ``view=<id>``. Presentation mode is a URL flag (``present=1`` and
+``slide=N``) that shows the dataset's saved views in order.
+"""
+
+from __future__ import annotations
+
+import flask
+from dash import ALL, Input, Output, State, ctx, dcc, html, no_update
+from dash.exceptions import PreventUpdate
+
+from webapp.state import ViewState, parse_query, to_query
+from webapp.ui import layout as L
+from webapp.ui import view_model as vm
+
+
+def register_sharing_callbacks(app, services) -> None:
+    _register_display(app, services)
+    _register_save(app, services)
+    _register_presentation(app, services)
+
+
+# --- what the sharing parts show ---------------------------------------------------
+
+
+def _register_display(app, services) -> None:
+    @app.callback(
+        Output(L.APP_ROOT, "className"),
+        Output(L.SAVED_BANNER, "children"),
+        Output(L.SAVED_BANNER, "hidden"),
+        Output(L.SAVED_LIST, "children"),
+        Output(L.PRESENT_BAR, "hidden"),
+        Output(L.SLIDE_POSITION, "children"),
+        Output(L.ORIGIN_VIEW, "data"),
+        Input(L.URL, "search"),
+    )
+    def show_sharing(search):
+        state, _ = parse_query(search)
+        shown, slides, _ = vm.effective_state(services, state)
+        info = vm.saved_view_info(services, shown)
+        banner = saved_banner(info, shown, _base_url()) if info else None
+        position = f"{slides.position} / {slides.count}" if slides else ""
+        return (
+            "ordinate is-presenting" if state.present else "ordinate",
+            banner,
+            info is None,
+            saved_list(vm.saved_views_list(services, state.dataset), state.dataset),
+            not state.present,
+            position,
+            info["view_id"] if info else no_update,
+        )
+
+
+def saved_banner(info: dict, state: ViewState, base_url: str) -> list:
+    short = f"{base_url}v/{info['view_id']}"
+    meta = [f"Saved {info['saved']}"]
+    if info["author"]:
+        meta.append(f"by {info['author']}")
+    meta.append(f"engine {info['engine_version']}")
+    meta.append(f"data fingerprint {info['content_hash'][:12]}…")
+    children = [
+        html.Div(className="banner-head", children=[
+            html.H2(info["title"], className="saved-title"),
+            html.Div(className="banner-actions", children=[
+                html.Label([html.Span("Short link", className="visually-hidden"),
+                            dcc.Input(id="short-link", value=short, readOnly=True, className="link-text")]),
+                dcc.Clipboard(target_id="short-link", className="copy-button", title="Copy the short link"),
+                html.Button("Duplicate and edit", id={"type": "duplicate", "index": 0}, n_clicks=0,
+                            className="small-button"),
+            ]),
+        ]),
+        dcc.Markdown(info["note"], className="saved-note", link_target="_blank"),
+        html.P(" · ".join(meta), className="saved-meta"),
+    ]
+    if info["outdated_engine"]:
+        children.append(html.P(
+            "This view was saved with another engine version; its numbers were recomputed with the current one.",
+            className="notice"))
+    return children
+
+
+def saved_list(views: list[dict], dataset: str | None) -> list:
+    if not views:
+        return [html.P("No saved views yet. Use “Save view” to keep this analysis with a title and a note.",
+                       className="quiet")]
+    items = []
+    for view in views:
+        present = "?" + to_query(ViewState(dataset=dataset, present=True, slide=view["position"]))
+        meta = view["saved"] + (f" · {view['author']}" if view["author"] else "")
+        items.append(html.Li(className="saved-item", children=[
+            html.A(view["title"], href=f"/v/{view['view_id']}", className="saved-link"),
+            html.Span(meta, className="saved-meta"),
+            html.P(view["note"], className="saved-preview") if view["note"] else None,
+            html.A("present from here", href=present, className="small-link"),
+        ]))
+    return [html.Ol(items, className="saved-items")]
+
+
+def _base_url() -> str:
+    try:
+        return flask.request.host_url
+    except RuntimeError:  # outside a request (tests calling the function directly)
+        return "/"
+
+
+# --- saving -----------------------------------------------------------------------------
+
+
+def _register_save(app, services) -> None:
+    @app.callback(
+        Output(L.SAVE_PANEL, "hidden"),
+        Output(L.SAVE_TITLE, "value"),
+        Output(L.SAVE_NOTE, "value"),
+        Output(L.SAVE_RESULT, "children", allow_duplicate=True),
+        Input(L.SAVE_OPEN, "n_clicks"),
+        Input(L.SAVE_CANCEL, "n_clicks"),
+        Input({"type": "duplicate", "index": ALL}, "n_clicks"),
+        State(L.SAVE_PANEL, "hidden"),
+        State(L.URL, "search"),
+        prevent_initial_call=True,
+    )
+    def toggle_save_panel(_open, _cancel, duplicate, hidden, search):
+        if ctx.triggered_id == L.SAVE_CANCEL:
+            return True, no_update, no_update, None
+        if isinstance(ctx.triggered_id, dict) and not any(duplicate or ()):
+            raise PreventUpdate
+        if ctx.triggered_id == L.SAVE_OPEN and not hidden:
+            return True, no_update, no_update, None
+        state, _ = parse_query(search)
+        info = vm.saved_view_info(services, state)
+        title = f"Copy of {info['title']}" if info else ""
+        note = info["note"] if info else ""
+        return False, title, note, None
+
+    @app.callback(
+        Output(L.URL, "search", allow_duplicate=True),
+        Output(L.SAVE_RESULT, "children"),
+        Input(L.SAVE_CONFIRM, "n_clicks"),
+        State(L.SAVE_TITLE, "value"),
+        State(L.SAVE_NOTE, "value"),
+        State(L.SAVE_AUTHOR, "value"),
+        State(L.URL, "search"),
+        State(L.ORIGIN_VIEW, "data"),
+        prevent_initial_call=True,
+    )
+    def save_current_view(_clicks, title, note, author, search, origin):
+        state, _ = parse_query(search)
+        if state.dataset is None or state.present:
+            raise PreventUpdate
+        if not (title or "").strip():
+            return no_update, html.P("Give the view a title first.", className="notice notice-error")
+        try:
+            view = vm.save_view(services, state, title=title, note=note or "", author=author or "",
+                                parent=state.saved_view or origin)
+        except (vm.DatasetNotFound, KeyError):
+            return no_update, html.P("This dataset is no longer available.", className="notice notice-error")
+        short = f"{_base_url()}v/{view.view_id}"
+        message = html.P(["Saved. Short link: ", html.A(short, href=short, className="saved-link")],
+                         className="save-done")
+        return "?" + to_query(state.replace(saved_view=view.view_id)), message
+
+
+# --- presenting -------------------------------------------------------------------------
+
+
+def _register_presentation(app, services) -> None:
+    @app.callback(
+        Output(L.URL, "search", allow_duplicate=True),
+        Input(L.PRESENT_OPEN, "n_clicks"),
+        Input(L.SLIDE_PREV, "n_clicks"),
+        Input(L.SLIDE_NEXT, "n_clicks"),
+        Input(L.PRESENT_EXIT, "n_clicks"),
+        State(L.URL, "search"),
+        prevent_initial_call=True,
+    )
+    def navigate(_open, _prev, _next, _exit, search):
+        state, _ = parse_query(search)
+        if state.dataset is None or not ctx.triggered or not ctx.triggered[0].get("value"):
+            raise PreventUpdate
+        return "?" + to_query(presentation_step(services, state, ctx.triggered_id))
+
+    app.clientside_callback(
+        """function(clicks) {
+            if (!clicks) { return window.dash_clientside.no_update; }
+            if (document.fullscreenElement) { document.exitFullscreen(); }
+            else if (document.documentElement.requestFullscreen) { document.documentElement.requestFullscreen(); }
+            return window.dash_clientside.no_update;
+        }""",
+        Output(L.FULL_SCREEN, "title"),
+        Input(L.FULL_SCREEN, "n_clicks"),
+        prevent_initial_call=True,
+    )
+
+
+def presentation_step(services, state: ViewState, action: str) -> ViewState:
+    """The state after a presentation control: open, previous, next or leave."""
+    shown, slides, _ = vm.effective_state(services, state)
+    if action == L.PRESENT_OPEN:
+        start = _position_of(services, state) if not state.present else state.slide
+        return ViewState(dataset=state.dataset, present=True, slide=start)
+    if action == L.PRESENT_EXIT:
+        return shown.replace(present=False, slide=1)
+    step = -1 if action == L.SLIDE_PREV else 1
+    count = slides.count if slides else 1
+    return state.replace(slide=min(max(state.slide + step, 1), count))
+
+
+def _position_of(services, state: ViewState) -> int:
+    ids = [v.view_id for v in services.store.views_for_dataset(state.dataset)]
+    return ids.index(state.saved_view) + 1 if state.saved_view in ids else 1
