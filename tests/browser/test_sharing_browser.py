@@ -1,0 +1,88 @@
+"""Saving a view and presenting, in headless Chromium (dash[testing]).
+
+Reference values: Fisher's iris as shipped with scikit-learn; covariance-matrix
+PC1 share 92.46 % (widely published, quoted from memory).
+"""
+
+import json
+import time
+
+import pytest
+from selenium import webdriver
+from selenium.webdriver.common.keys import Keys
+
+from tests.app.conftest import iris_frame
+from tests.browser.test_dashboard import FIGURE_DATA_JS, FIRST_PERCENT, TIMEOUT, _headless_options, _text, _wait_for
+from webapp.app import create_app
+from webapp.config import AppConfig
+from webapp.state import ViewState, to_query
+from webapp.ui import view_model as vm
+
+pytestmark = pytest.mark.browser
+
+
+@pytest.fixture
+def app_and_token(tmp_path):
+    app = create_app(AppConfig(data_dir=tmp_path / "data"))
+    services = app.server.config["ordinate.services"]
+    token = services.store.add_bytes(iris_frame().to_csv(index=False).encode(), "iris.csv").token
+    return app, services, token
+
+
+def test_save_view_and_open_its_short_link_in_a_fresh_browser(dash_duo, app_and_token):
+    app, services, token = app_and_token
+    dash_duo.start_server(app)
+    dash_duo.driver.get(dash_duo.server_url + "/?" + to_query(ViewState(dataset=token, scaling="none", pc_y=3)))
+    dash_duo.wait_for_text_to_equal(FIRST_PERCENT, "92.46", timeout=TIMEOUT)
+    figure = _wait_for(lambda: dash_duo.driver.execute_script(FIGURE_DATA_JS))
+
+    dash_duo.find_element("#save-open").click()
+    dash_duo.wait_for_element("#save-title").send_keys("Covariance view")
+    dash_duo.find_element("#save-note").send_keys("Petal length **dominates** PC1.")
+    dash_duo.find_element("#save-confirm").click()
+    dash_duo.wait_for_contains_text("#save-result", "/v/", timeout=TIMEOUT)
+    short = dash_duo.find_element("#save-result a").get_attribute("href")
+    assert "view=" in dash_duo.driver.current_url
+    dash_duo.wait_for_contains_text("#saved-banner", "Covariance view", timeout=TIMEOUT)
+
+    fresh = webdriver.Chrome(options=_headless_options())
+    try:
+        fresh.get(short)
+        _wait_for(lambda: _text(fresh, FIRST_PERCENT) == "92.46")
+        assert "Covariance view" in _text(fresh, "#saved-banner")
+        assert fresh.find_element("css selector", "#saved-banner strong").text == "dominates"
+        fresh_figure = _wait_for(lambda: fresh.execute_script(FIGURE_DATA_JS))
+        assert json.loads(fresh_figure) == json.loads(figure)
+    finally:
+        fresh.quit()
+
+
+def test_present_mode_steps_through_three_views_by_keyboard(dash_duo, app_and_token):
+    app, services, token = app_and_token
+    for title, scaling in (("Autoscaled", "unit"), ("Covariance", "none"), ("Pareto", "pareto")):
+        vm.save_view(services, ViewState(dataset=token, scaling=scaling), title=title, note=f"{title} note",
+                     author="", parent=None)
+    dash_duo.start_server(app)
+    dash_duo.driver.get(dash_duo.server_url + "/?" + to_query(ViewState(dataset=token, present=True)))
+    dash_duo.wait_for_contains_text("#saved-banner", "Autoscaled", timeout=TIMEOUT)
+    dash_duo.wait_for_text_to_equal("#slide-position", "1 / 3", timeout=TIMEOUT)
+    assert not dash_duo.find_element(".recipe-rail").is_displayed()
+    body = dash_duo.find_element("body")
+
+    body.send_keys(Keys.ARROW_RIGHT)
+    dash_duo.wait_for_text_to_equal("#slide-position", "2 / 3", timeout=TIMEOUT)
+    dash_duo.wait_for_contains_text("#saved-banner", "Covariance", timeout=TIMEOUT)
+    dash_duo.wait_for_text_to_equal(FIRST_PERCENT, "92.46", timeout=TIMEOUT)
+    assert "slide=2" in dash_duo.driver.current_url
+
+    body.send_keys(Keys.ARROW_RIGHT)
+    dash_duo.wait_for_text_to_equal("#slide-position", "3 / 3", timeout=TIMEOUT)
+    dash_duo.wait_for_contains_text("#saved-banner", "Pareto", timeout=TIMEOUT)
+
+    body.send_keys(Keys.ARROW_LEFT)
+    dash_duo.wait_for_text_to_equal("#slide-position", "2 / 3", timeout=TIMEOUT)
+    dash_duo.find_element("#present-exit").click()
+    _wait_for(lambda: "present=0" in dash_duo.driver.current_url)
+    time.sleep(0.5)
+    assert dash_duo.find_element(".recipe-rail").is_displayed()
+    assert "scale=none" in dash_duo.driver.current_url
