@@ -155,3 +155,41 @@ def _headless_options():
     options = pytest_setup_options()
     options.add_argument("--headless=new")
     return options
+
+
+def _emit(dash_duo, graph_id, event, labels):
+    # dcc.Graph reads each point's data back from the figure by curve and point
+    # number; iris flowers F000-F049 (setosa) are trace 0, in file order.
+    points = ", ".join("{curveNumber: 0, pointNumber: %d}" % int(label[1:]) for label in labels)
+    dash_duo.driver.execute_script(
+        f"document.querySelector('#{graph_id} .js-plotly-plot').emit('{event}', {{points: [{points}]}});")
+
+
+def test_click_inspects_a_sample_and_lasso_leaves_samples_out(dash_duo, app, iris_csv):
+    _open_with_iris(dash_duo, app, iris_csv)
+    _emit(dash_duo, "scores-graph", "plotly_click", ["F041"])
+    dash_duo.wait_for_contains_text("#contributions", "What drives sample F041", timeout=TIMEOUT)
+    assert "pick=F041" in dash_duo.driver.current_url
+
+    _emit(dash_duo, "scores-graph", "plotly_selected", ["F000", "F001", "F002"])
+    dash_duo.find_element("#exclude-selected").click()
+    dash_duo.wait_for_contains_text("#excluded-list", "F002", timeout=TIMEOUT)
+    assert "ex=F000&ex=F001&ex=F002" in dash_duo.driver.current_url
+    dash_duo.wait_for_contains_text("#provenance", "147 of 150", timeout=TIMEOUT)
+
+    dash_duo.find_element("#excluded-list button[title='Put F001 back into the model']").click()
+    dash_duo.wait_for_contains_text("#provenance", "148 of 150", timeout=TIMEOUT)
+    dash_duo.find_element("#restore-all").click()
+    dash_duo.wait_for_contains_text("#provenance", "150 of 150", timeout=TIMEOUT)
+
+
+def test_file_over_the_size_limit_is_refused_with_a_message(dash_duo, app, tmp_path):
+    dash_duo.start_server(app)  # this app accepts up to 5 MB
+    dash_duo.wait_for_element("#scores-graph .js-plotly-plot", timeout=TIMEOUT)
+    big = tmp_path / "big.csv"
+    row = b"1.0,2.0,3.0,4.0\n"
+    big.write_bytes(b"a,b,c,d\n" + row * (6 * 1024 * 1024 // len(row)))
+    _upload(dash_duo, big)
+    status = _wait_for(lambda: "is-error" in dash_duo.find_element("#upload-status").get_attribute("class")
+                       and dash_duo.find_element("#upload-status").text)
+    assert "6.0 MB" in status and "5 MB" in status
