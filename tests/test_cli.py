@@ -77,3 +77,19 @@ def test_console_script_runs_as_a_process(tmp_path):
                             capture_output=True, text=True, timeout=120)
     assert result.returncode == 2
     assert result.stderr.startswith("ordinate: ") and "Traceback" not in result.stderr
+
+
+def test_report_command_writes_a_self_contained_file(iris_csv, tmp_path, capsys):
+    from webapp.state import ViewState, to_query
+    from webapp.storage import DataStore
+
+    store = DataStore(tmp_path / "data")
+    record = store.add_bytes(iris_csv.read_bytes(), "iris.csv")
+    view = store.save_view(record.token, to_query(ViewState(dataset=record.token)), title="Iris overview",
+                           content_hash=record.content_hash, engine_version="1")
+    out = tmp_path / "report.html"
+    assert main(["report", view.view_id, "--data-dir", str(tmp_path / "data"), "--out", str(out)]) == 0
+    text = out.read_text(encoding="utf-8")
+    assert "Iris overview" in text and "2.9185" in text and "<script src=" not in text
+    assert main(["report", "Z" * 24, "--data-dir", str(tmp_path / "data"), "--out", str(out)]) == 2
+    assert "Traceback" not in capsys.readouterr().err

@@ -77,6 +77,7 @@ __all__ = [
     "key_file_warning",
     "safe_next",
     "load_or_create_secret",
+    "cookie_serializer",
     "register_access_control",
     "register_security_headers",
 ]
@@ -99,8 +100,11 @@ SECRET_BYTES = 32
 FAILED_SIGN_IN_DELAY_SECONDS = 0.5
 _COOKIE_SALT = "ordinate-access-cookie"
 _MAX_COOKIE_CHARS = 4096
-# Long view URLs survive the trip through sign-in; beyond this, only the path is kept.
+# Long view URLs survive the trip through sign-in, as long as the sign-in address
+# that carries them (percent-encoded, so longer) stays within the request line
+# gunicorn accepts (8190 bytes at most); otherwise only the path is kept.
 _MAX_NEXT_CHARS = 12_000
+_MAX_SIGN_IN_LOCATION_CHARS = 8000
 
 SECURITY_HEADERS = {
     "X-Content-Type-Options": "nosniff",
@@ -393,10 +397,25 @@ def _requested_target() -> str:
     return target if len(target) <= _MAX_NEXT_CHARS else request.path
 
 
+def _sign_in_location(next_path: str) -> str:
+    """``/sign-in?next=...``; the query of ``next`` is dropped if the address would be too long."""
+    location = f"{SIGN_IN_PATH}?next={quote(next_path, safe='/')}"
+    if len(location) > _MAX_SIGN_IN_LOCATION_CHARS:
+        location = f"{SIGN_IN_PATH}?next={quote(safe_next(next_path.split('?', 1)[0]), safe='/')}"
+    if len(location) > _MAX_SIGN_IN_LOCATION_CHARS:
+        location = f"{SIGN_IN_PATH}?next=/"
+    return location
+
+
 def _wants_html(request: flask.Request) -> bool:
     """True when the client explicitly accepts HTML (a browser navigating), not for ``*/*``."""
     return any(value in ("text/html", "application/xhtml+xml") and quality > 0
                for value, quality in request.accept_mimetypes)
+
+
+def cookie_serializer(secret: bytes) -> URLSafeTimedSerializer:
+    """The signer of the access cookie: HMAC-SHA256 under the server secret, with a timestamp."""
+    return URLSafeTimedSerializer(secret, salt=_COOKIE_SALT, signer_kwargs={"digest_method": hashlib.sha256})
 
 
 def _key_fingerprint(secret: bytes, access_key: str) -> str:
@@ -435,7 +454,8 @@ button { margin-top: 14px; width: 100%; padding: 9px 12px; border: 0; border-rad
          color: #fff; font: inherit; font-weight: 600; cursor: pointer; }
 button:hover { background: #0b4a72; }
 :focus-visible { outline: 3px solid #f0b400; outline-offset: 2px; }
-.problem { margin: 0 0 14px; padding: 8px 10px; border-radius: 6px; background: #fdecee; color: #a3222b; font-weight: 600; }
+.problem { margin: 0 0 14px; padding: 8px 10px; border-radius: 6px; background: #fdecee; color: #a3222b;
+           font-weight: 600; }
 .hint { margin: 14px 0 0; color: #4a5366; font-size: 0.9rem; }
 """
 
@@ -523,7 +543,7 @@ def register_access_control(server: flask.Flask, *, access_key: str | None, secr
     _check_key(access_key)
 
     secret = load_or_create_secret(secret_dir)
-    serializer = URLSafeTimedSerializer(secret, salt=_COOKIE_SALT)
+    serializer = cookie_serializer(secret)
     fingerprint = _key_fingerprint(secret, access_key)
     expected_key = access_key.encode("utf-8")
 
@@ -542,8 +562,7 @@ def register_access_control(server: flask.Flask, *, access_key: str | None, secr
         if request.path in PUBLIC_PATHS or signed_in(request):
             return None
         if request.method in ("GET", "HEAD") and _wants_html(request):
-            location = f"{SIGN_IN_PATH}?next={quote(safe_next(_requested_target()), safe='/')}"
-            return _see_other(location)
+            return _see_other(_sign_in_location(safe_next(_requested_target())))
         response = flask.jsonify({"error": SIGN_IN_REQUIRED_MESSAGE})
         response.status_code = 401
         response.headers["WWW-Authenticate"] = 'Cookie realm="Ordinate"'

@@ -17,9 +17,12 @@ import dash
 from flask import redirect, request
 
 from webapp import __version__
+from webapp.access import AccessConfigError, register_access_control
 from webapp.analysis.errors import OrdinateError
 from webapp.compute import ComputeLayer
 from webapp.config import DEMO_TITLE, AppConfig
+from webapp.exports import register_export_routes
+from webapp.manage import manage_link, register_manage_routes
 from webapp.state import ViewState, parse_query, to_query
 from webapp.storage import DataStore
 from webapp.ui.callbacks import register_callbacks
@@ -56,6 +59,13 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
         update_title=None,
         compress=True,  # gzip callback responses: figure payloads shrink several-fold on the wire
     )
+    if config.require_access_key and not config.access_key:
+        raise AccessConfigError(
+            "This server needs a team access key: set ORDINATE_ACCESS_KEY or pass --access-key-file.")
+    # Always registered: without a key it only adds security headers.
+    register_access_control(app.server, access_key=config.access_key, secret_dir=Path(config.data_dir))
+    register_manage_routes(app.server, services.store, on_delete=lambda record: _forget_if_unused(services, record))
+    register_export_routes(app.server, services)
     app.layout = build_layout(config)
     register_callbacks(app, services)
     register_upload_route(app.server, services.store, limit_bytes=config.max_upload_bytes,
@@ -68,9 +78,18 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
 
 
 def _inspect_upload(services: Services, record) -> dict:
-    """Parse an uploaded file right away so a bad file is reported at once."""
+    """Parse an uploaded file right away so a bad file is reported at once.
+
+    The summary carries the private manage link: only the uploader's browser
+    receives it, and only its holder can rename or delete the dataset.
+    """
     table = services.compute.table(record)
-    return table_summary(record, table)
+    return {**table_summary(record, table), "manage": manage_link(record)}
+
+
+def _forget_if_unused(services: Services, record) -> None:
+    if not services.store.blob_path(record).exists():
+        services.compute.forget(record.content_hash)
 
 
 def _ensure_demo(services: Services) -> None:

@@ -40,6 +40,7 @@ def _parser() -> argparse.ArgumentParser:
     _add_analyze(commands)
     _add_project(commands)
     _add_serve(commands)
+    _add_report(commands)
     return parser
 
 
@@ -78,7 +79,25 @@ def _add_serve(commands) -> None:
     cmd.add_argument("--data-dir", type=Path, default=Path(".ordinate-data"))
     cmd.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
     cmd.add_argument("--max-upload-mb", type=float, help="largest accepted upload in MB (default 200)")
+    cmd.add_argument("--access-key-file", type=Path, metavar="FILE",
+                     help="file holding the team access key (default: $ORDINATE_ACCESS_KEY)")
+    cmd.add_argument("--no-access-key", action="store_true",
+                     help="serve a network address without an access key (not recommended)")
     cmd.set_defaults(run=_run_serve)
+
+
+def _add_report(commands) -> None:
+    cmd = commands.add_parser("report", help="write the self-contained HTML report of a saved view")
+    cmd.add_argument("view_id", help="the saved view's link code (the part after /v/)")
+    cmd.add_argument("--data-dir", type=Path, default=Path(".ordinate-data"))
+    cmd.add_argument("--out", type=Path, required=True, metavar="FILE", help="HTML file to write")
+    cmd.set_defaults(run=_run_report)
+
+
+def _run_report(args) -> int:
+    from webapp.report import report_main
+
+    return report_main(args.data_dir, args.view_id, args.out)
 
 
 def _run_analyze(args) -> int:
@@ -124,10 +143,20 @@ def _run_project(args) -> int:
 
 
 def _run_serve(args) -> int:
+    from webapp.access import AccessConfigError, access_policy, key_file_warning, resolve_access_key
     from webapp.server import serve
 
+    try:
+        policy = access_policy(args.host, resolve_access_key(args.access_key_file), args.no_access_key)
+    except AccessConfigError as error:
+        print(f"ordinate: {error}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    if args.access_key_file and (warning := key_file_warning(args.access_key_file)):
+        print(f"ordinate: {warning}", file=sys.stderr)
+    if policy.warning:
+        print(policy.warning, file=sys.stderr)
     return serve(host=args.host, port=args.port, data_dir=args.data_dir, workers=args.workers,
-                 max_upload_mb=args.max_upload_mb)
+                 max_upload_mb=args.max_upload_mb, access_key=policy.access_key)
 
 
 # --- helpers -----------------------------------------------------------------

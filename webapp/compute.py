@@ -61,6 +61,16 @@ class ComputeLayer:
         key = fit_key(record.content_hash, recipe)
         return key in self._memo or key in self.cache
 
+    def forget(self, content_hash: str) -> None:
+        """Drop every cached result of a dataset's bytes (after its deletion)."""
+        marker = f"/{content_hash}"
+        for key in list(self.cache.iterkeys()):
+            if isinstance(key, str) and marker in key:
+                self.cache.delete(key)
+        with self._memo_lock:
+            for key in [k for k in self._memo if marker in k]:
+                del self._memo[key]
+
     def stats(self) -> dict[str, int]:
         return {name: int(self.cache.get(f"stats/{name}", 0)) for name in ("fits", "parses")}
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 REPOSITORY_ROOT = Path(__file__).resolve().parent.parent
@@ -19,7 +19,7 @@ class AppConfig:
     title: str = "Ordinate"
     # Access control (see docs/deployment.md): a shared key that team members
     # enter once; None with require_access_key False means open (loopback only).
-    access_key: str | None = None
+    access_key: str | None = field(default=None, repr=False)
     require_access_key: bool = False
 
     @property

@@ -189,14 +189,14 @@ def build_report_html(services, saved_view: SavedView) -> str:
 
 
 def _header(saved_view: SavedView, view, record) -> str:
-    author = saved_view.author or "not given"
+    saved_by = f"saved by {_e(saved_view.author)} on" if saved_view.author else "saved on"
     dataset = _e(view.title) if view.title == record.filename else f"{_e(view.title)} ({_e(record.filename)})"
     return (
         '<header class="report-head">\n'
         '<p class="kicker">Ordinate report</p>\n'
         f"<h1>{_e(saved_view.title)}</h1>\n"
         f'<p class="meta">Dataset: <strong>{dataset}</strong> · '
-        f"saved by {_e(author)} on {_e(_utc(saved_view.created))}</p>\n"
+        f"{saved_by} {_e(_utc(saved_view.created))}</p>\n"
         "</header>"
     )
 
@@ -327,7 +327,8 @@ _CSS = f"""
 * {{ box-sizing: border-box; }}
 body {{ margin: 0; font-family: {FONT_FAMILY}; color: {TEXT_COLOUR}; background: #fff; line-height: 1.5; }}
 main {{ max-width: 1000px; margin: 0 auto; padding: 24px 28px 48px; }}
-.kicker {{ margin: 0; color: {MUTED_TEXT_COLOUR}; font-size: 0.85rem; letter-spacing: 0.06em; text-transform: uppercase; }}
+.kicker {{ margin: 0; color: {MUTED_TEXT_COLOUR}; font-size: 0.85rem; letter-spacing: 0.06em;
+  text-transform: uppercase; }}
 h1 {{ margin: 4px 0 6px; font-size: 1.7rem; line-height: 1.25; }}
 h2 {{ margin: 0 0 10px; font-size: 1.2rem; border-bottom: 1px solid #E8EAED; padding-bottom: 4px; }}
 .meta {{ margin: 0; color: {MUTED_TEXT_COLOUR}; }}

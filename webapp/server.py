@@ -19,10 +19,12 @@ THREADS_PER_WORKER = 4
 WORKER_TIMEOUT_SECONDS = 600
 
 
-def serve(*, host: str, port: int, data_dir: Path, workers: int, max_upload_mb: float | None = None) -> int:
+def serve(*, host: str, port: int, data_dir: Path, workers: int, max_upload_mb: float | None = None,
+          access_key: str | None = None) -> int:
     from gunicorn.app.base import BaseApplication
 
-    config = AppConfig.from_environment(data_dir=Path(data_dir), max_upload_mb=max_upload_mb)
+    config = AppConfig.from_environment(data_dir=Path(data_dir), max_upload_mb=max_upload_mb,
+                                        access_key=access_key, require_access_key=access_key is not None)
     config.data_dir.mkdir(parents=True, exist_ok=True)
     # Build once in the parent so the demo dataset is registered before workers start.
     from webapp.app import create_app
@@ -40,6 +42,9 @@ def serve(*, host: str, port: int, data_dir: Path, workers: int, max_upload_mb: 
                 "accesslog": None,
                 "errorlog": "-",
                 "loglevel": "warning",
+                # View URLs hold every setting (and excluded sample labels); gunicorn
+                # caps this at 8190 (0 would mean unlimited).
+                "limit_request_line": 8190,
             }
             for key, value in settings.items():
                 self.cfg.set(key, value)

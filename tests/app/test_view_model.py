@@ -131,9 +131,3 @@ def test_variable_correlations_match_numpy(services, iris_token):
     X, T = resolved.fitted.prepared.matrix, resolved.fitted.pca.scores
     expected = np.array([[np.corrcoef(X[:, j], T[:, a])[0, 1] for a in range(4)] for j in range(4)])
     np.testing.assert_allclose(ours, expected, atol=1e-10)
-
-
-def test_variance_csv_download(services, iris_token):
-    text, name = vm.variance_csv(services, ViewState(dataset=iris_token))
-    assert name == "iris-variance-explained.csv"
-    assert "2.9185" in text.splitlines()[1]

@@ -74,6 +74,10 @@ def test_upload_shows_variance_table_and_scaling_change_and_back(dash_duo, app, 
     _open_with_iris(dash_duo, app, iris_csv)
     dash_duo.wait_for_text_to_equal(FIRST_PERCENT, "72.96", timeout=TIMEOUT)
     assert "iris.csv" in dash_duo.find_element("#dataset-title").text
+    download = _wait_for(lambda: dash_duo.find_element("#download-table").get_attribute("href"))
+    assert "/export/variance.csv?v=1&ds=" in download
+    manage = _wait_for(lambda: dash_duo.driver.find_elements(By.CSS_SELECTOR, "#manage-box a"))
+    assert "/manage/" in manage[0].get_attribute("href") and "key=" in manage[0].get_attribute("href")
     with_unit_scaling = dash_duo.driver.current_url
     assert "scale=unit" in with_unit_scaling
 

@@ -24,7 +24,7 @@ from plotly.subplots import make_subplots
 from webapp.analysis.errors import OrdinateError
 from webapp.figures._points import WEBGL_THRESHOLD, as_float32, as_labels, point_trace, resolve_groups
 from webapp.figures.palette import NEGATIVE_COLOUR, POSITIVE_COLOUR, GroupStyle
-from webapp.figures.scores import _ring_trace
+from webapp.figures.scores import DENSITY_THRESHOLD, _density_trace, _ring_trace
 from webapp.figures.text import count_text, escape_text, level_percent
 from webapp.figures.theme import MUTED_TEXT_COLOUR, TEXT_COLOUR, axis_style, base_layout, new_figure, style_for
 
@@ -177,6 +177,15 @@ def diagnostics_figure(
 
     hover_lines = ["T²: %{x:.4g}", "Q: %{y:.4g}"]
     traces: list = []
+    if n > DENSITY_THRESHOLD:
+        # Many samples: a density of all of them, and markers only where a
+        # decision is needed (flagged samples stay clickable).
+        traces.append(_density_trace(t2_values, q_values, style, square=False))
+        fig.layout.annotations += (dict(
+            text=f"Density view of {count_text(n)} samples; only samples beyond a limit are drawn as points.",
+            xref="paper", yref="paper", x=1, y=1, xanchor="right", yanchor="bottom", showarrow=False,
+            font=dict(size=style.note_size, color=MUTED_TEXT_COLOUR)),)
+        present = ()
     for group in present:
         index = np.flatnonzero(names == group)
         traces.append(point_trace(

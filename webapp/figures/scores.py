@@ -294,15 +294,18 @@ def _legend_group(group: str | None) -> str:
 # density view
 # --------------------------------------------------------------------------
 
-def _density_trace(x: np.ndarray, y: np.ndarray, style: Style) -> go.Heatmap:
+def _density_trace(x: np.ndarray, y: np.ndarray, style: Style, *, square: bool = True) -> go.Heatmap:
     finite = np.isfinite(x) & np.isfinite(y)
     xs, ys = x[finite].astype(np.float64), y[finite].astype(np.float64)
     x_lo, x_hi = float(xs.min()), float(xs.max())
     y_lo, y_hi = float(ys.min()), float(ys.max())
-    # Square cells, so the equal-aspect plot shows the true shape of the cloud.
-    width = max(x_hi - x_lo, y_hi - y_lo) / DENSITY_BINS or 1.0
-    x_edges = x_lo + width * np.arange(int(np.floor((x_hi - x_lo) / width)) + 2)
-    y_edges = y_lo + width * np.arange(int(np.floor((y_hi - y_lo) / width)) + 2)
+    if square:
+        # Square cells, so the equal-aspect plot shows the true shape of the cloud.
+        x_width = y_width = max(x_hi - x_lo, y_hi - y_lo) / DENSITY_BINS or 1.0
+    else:
+        x_width, y_width = (x_hi - x_lo) / DENSITY_BINS or 1.0, (y_hi - y_lo) / DENSITY_BINS or 1.0
+    x_edges = x_lo + x_width * np.arange(int(np.floor((x_hi - x_lo) / x_width)) + 2)
+    y_edges = y_lo + y_width * np.arange(int(np.floor((y_hi - y_lo) / y_width)) + 2)
     counts, _, _ = np.histogram2d(xs, ys, bins=[x_edges, y_edges])
     z = counts.T.astype(np.float32)
     z[z == 0] = np.nan  # empty cells stay white

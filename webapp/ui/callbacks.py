@@ -22,7 +22,9 @@ from webapp.ui import view_model as vm
 from webapp.ui.components import (
     dataset_summary,
     excluded_chips,
+    export_link_list,
     flagged_table,
+    manage_box,
     notice_list,
     not_found_card,
     provenance_block,
@@ -303,29 +305,36 @@ def _register_actions(app, services) -> None:
             raise PreventUpdate
         return _search_if_changed(current, current.replace(picked=labels[0]))
 
-    @app.callback(url_out, Output(L.NOTICES, "children", allow_duplicate=True), Input(L.UPLOAD_RESULT, "data"),
+    @app.callback(url_out, Output(L.NOTICES, "children", allow_duplicate=True),
+                  Output(L.MANAGE_LINKS, "data"), Input(L.UPLOAD_RESULT, "data"), State(L.MANAGE_LINKS, "data"),
                   prevent_initial_call=True)
-    def open_uploaded(result):
+    def open_uploaded(result, links):
         if not result:
             raise PreventUpdate
         if result.get("error"):
-            return no_update, notice_list((), (result["error"],))
-        return "?" + to_query(ViewState(dataset=result["token"])), no_update
+            return no_update, notice_list((), (result["error"],)), no_update
+        manage = (result.get("summary") or {}).get("manage")
+        links = {**(links or {}), result["token"]: manage} if manage else no_update
+        return "?" + to_query(ViewState(dataset=result["token"])), no_update, links
+
+    @app.callback(Output(L.MANAGE_BOX, "children"), Input(L.URL, "search"), Input(L.MANAGE_LINKS, "data"))
+    def show_manage_link(search, links):
+        state, _ = parse_query(search)
+        link = (links or {}).get(state.dataset or "")
+        return manage_box(link) if link else None
 
     @app.callback(Output(L.VARIABLES, "value", allow_duplicate=True), Input(L.VARIABLES_ALL, "n_clicks"),
                   State(L.VARIABLES, "options"), prevent_initial_call=True)
     def include_all_variables(_clicks, options):
         return [option["value"] for option in options or ()]
 
-    @app.callback(Output(L.TABLE_DOWNLOAD, "data"), Input(L.DOWNLOAD_TABLE, "n_clicks"), State(L.URL, "search"),
-                  prevent_initial_call=True)
-    def download_table(_clicks, search):
+    @app.callback(Output(L.DOWNLOAD_TABLE, "href"), Output(L.EXPORT_LINKS, "children"), Input(L.URL, "search"))
+    def export_links(search):
         state, _ = parse_query(search)
-        try:
-            csv_text, filename = vm.variance_csv(services, state)
-        except (vm.DatasetNotFound, OrdinateError):
-            raise PreventUpdate from None
-        return {"content": csv_text, "filename": filename, "type": "text/csv"}
+        if state.dataset is None:
+            raise PreventUpdate
+        query = to_query(state)
+        return f"/export/variance.csv?{query}", export_link_list(query, state.saved_view)
 
 
 def _register_clientside(app) -> None:

@@ -122,3 +122,32 @@ def provenance_block(provenance: dict) -> html.Dl:
     for name, value in provenance.items():
         items += [html.Dt(name), html.Dd(str(value))]
     return html.Dl(items, className="provenance")
+
+
+def manage_box(link: str) -> html.Div:
+    return html.Div([
+        html.H3("Private manage link"),
+        html.P("You uploaded this dataset from this browser. This link renames or deletes it with all its "
+               "saved views; keep it to yourself, do not share it like a view link."),
+        html.A("Manage this dataset", href=link, className="small-button", target="_blank", rel="noopener"),
+    ])
+
+
+EXPORTS = (
+    ("scores.csv", "Scores (CSV)"),
+    ("loadings.csv", "Loadings (CSV)"),
+    ("variance.csv", "Variance table (CSV)"),
+    ("diagnostics.csv", "T² and Q per sample (CSV)"),
+    ("model.json", "Reference model (JSON)"),
+)
+
+
+def export_link_list(query: str, saved_view: str | None) -> list:
+    links = [html.A(label, href=f"/export/{name}?{query}", download="", className="small-button")
+             for name, label in EXPORTS]
+    if saved_view:
+        links.append(html.A("Report of this saved view (HTML)", href=f"/v/{saved_view}/report.html",
+                            download="", className="small-button"))
+    else:
+        links.append(html.Span("Save the view to download its self-contained HTML report.", className="quiet"))
+    return links

@@ -14,6 +14,8 @@ from webapp.state import BIPLOT_SCALINGS, CENTRINGS, MISSING_POLICIES, SCALINGS,
 
 URL = "url"
 UPLOAD_RESULT = "upload-result"
+MANAGE_LINKS = "manage-links"
+MANAGE_BOX = "manage-box"
 NOTICES = "notices"
 DATASET_TITLE = "dataset-title"
 DATASET_SUMMARY = "dataset-summary"
@@ -52,8 +54,8 @@ COMPONENT_ADVICE = "component-advice"
 VARIANCE_TABLE = "variance-table"
 VARIANCE_GRAPH = "variance-graph"
 COPY_TABLE = "copy-table"
-DOWNLOAD_TABLE = "download-table-button"
-TABLE_DOWNLOAD = "table-download"
+DOWNLOAD_TABLE = "download-table"
+EXPORT_LINKS = "export-links"
 
 CONFIDENCE = "confidence"
 DIAGNOSTICS_GRAPH = "diagnostics-graph"
@@ -108,6 +110,8 @@ def build_layout(config) -> html.Div:
             dcc.Location(id=URL, refresh=False),
             dcc.Store(id=UPLOAD_RESULT),
             dcc.Store(id=ORIGIN_VIEW, storage_type="session"),
+            # Manage links of datasets uploaded from this browser: kept locally, never in the URL.
+            dcc.Store(id=MANAGE_LINKS, storage_type="local"),
             _top_bar(config),
             _save_panel(),
             _present_bar(),
@@ -129,6 +133,7 @@ def _top_bar(config) -> html.Header:
                 html.Details(className="dataset-summary", children=[
                     html.Summary("About this data"),
                     html.Div(id=DATASET_SUMMARY),
+                    html.Div(id=MANAGE_BOX, className="manage-box"),
                 ]),
             ]),
             # assets/upload.js adds the file input and streams the file to /api/upload.
@@ -151,6 +156,8 @@ def _top_bar(config) -> html.Header:
                 html.Button("Present", id=PRESENT_OPEN, n_clicks=0, className="bar-button",
                             title="Step through this dataset's saved views, full screen"),
             ]),
+            *([html.Form(html.Button("Sign out", className="bar-button"), action="/sign-out", method="POST")]
+              if config.access_key else []),
             html.Div(className="share", children=[
                 html.Label([html.Span("Link to this view", className="visually-hidden"),
                             dcc.Input(id=LINK_TEXT, readOnly=True, className="link-text")]),
@@ -232,6 +239,10 @@ def _cards() -> html.Main:
         ]),
         html.Section(className="card provenance-card", children=[
             html.H2("Provenance"), html.Div(id=PROVENANCE),
+            html.H2("Downloads", className="downloads-title"),
+            html.P("CSV files open safely in spreadsheet programs (text that could run as a formula is escaped). "
+                   "The model file scores new batches with `ordinate project`.", className="quiet"),
+            html.Div(id=EXPORT_LINKS, className="export-links"),
         ]),
     ])
 
@@ -271,8 +282,7 @@ def _variance_card() -> html.Section:
             html.Div(className="toolbar", children=[
                 _inline("components kept (K)", dcc.Dropdown(id=COMPONENTS, clearable=False, className="k-select")),
                 dcc.Clipboard(id=COPY_TABLE, title="Copy the table (tab separated)", className="copy-button"),
-                html.Button("Download CSV", id=DOWNLOAD_TABLE, n_clicks=0, className="small-button"),
-                dcc.Download(id=TABLE_DOWNLOAD),
+                html.A("Download CSV", id=DOWNLOAD_TABLE, className="small-button", download=""),
             ]),
         ]),
         html.P(id=COMPONENT_ADVICE, className="advice"),

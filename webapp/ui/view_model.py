@@ -31,7 +31,6 @@ from webapp.figures import (
     loadings_bar_figure,
     scores_figure,
     variance_figure,
-    variance_table_csv,
     variance_table_rows,
     variance_table_tsv,
 )
@@ -446,19 +445,6 @@ def labels_from_event(event) -> list[str]:
         if isinstance(data, str):
             labels.append(data)
     return list(dict.fromkeys(labels))
-
-
-def variance_csv(services, state: ViewState) -> tuple[str, str]:
-    resolved = resolve(services, state)
-    pca, advice = resolved.fitted.pca, resolved.fitted.advice
-    diagnostics = _diagnose(resolved.fitted, state.components or "auto", state.confidence)
-    rows = variance_table_rows(
-        pca.eigenvalues, pca.explained_variance_ratio, pca.cumulative_explained,
-        kaiser=advice.kaiser, broken_stick=advice.broken_stick, parallel=advice.parallel,
-        components=diagnostics.components,
-    )
-    stem = resolved.record.filename.rsplit(".", 1)[0] or "data"
-    return variance_table_csv(rows), f"{stem}-variance-explained.csv"
 
 
 # --- saved views and presentation ------------------------------------------------------------
