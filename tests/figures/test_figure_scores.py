@@ -143,8 +143,10 @@ def test_customdata_column_zero_is_the_label_and_stays_a_plain_list(iris):
         custom = np.asarray(trace.customdata)
         mask = iris["groups"] == trace.name
         assert custom[:, 0].tolist() == iris["labels"][mask].tolist()
-        np.testing.assert_allclose(custom[:, 1].astype(float), iris["X"][mask, 0])
-        assert "sepal length (cm): %{customdata[1]:.4g}" in trace.hovertemplate
+        # Hover values travel as text with four significant digits, as shown.
+        np.testing.assert_allclose(custom[:, 1].astype(float), iris["X"][mask, 0], rtol=5e-4)
+        assert custom[0, 1] == f"{iris['X'][mask, 0][0]:.4g}"
+        assert "sepal length (cm): %{customdata[1]}" in trace.hovertemplate
     # Labels are text, so JSON carries a list (Dash click data needs it, plotly/plotly.py#5119).
     payload = json.loads(fig.to_json())
     assert isinstance(payload["data"][0]["customdata"], list)

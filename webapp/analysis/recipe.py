@@ -185,7 +185,7 @@ def prepare(table, recipe: Recipe) -> PreparedData:
     labels = np.asarray(_labels(table, id_column), dtype=object)
     variables = _resolve_variables(table, recipe, id_column)
     keep = _excluded_mask(labels, recipe.excluded_samples, warnings)
-    values = _numeric_block(table.frame.loc[keep], variables)
+    values = _numeric_block(table.frame, variables, None if keep.all() else keep)
     labels, positions = labels[keep], np.flatnonzero(keep)
     transforms = tuple(recipe.transform_for(v) for v in variables)
     _apply_transforms(values, variables, transforms, labels)
@@ -243,7 +243,14 @@ def _labels(table, id_column: str | None) -> list[str]:
     if id_column is None:
         return [f"row {number}" for number in rows]
     column = table.frame[id_column]
-    labels = [_label_text(value, number) for value, number in zip(column, rows)]
+    if pd.api.types.is_numeric_dtype(column):
+        labels = [_label_text(value, number) for value, number in zip(column, rows)]
+    else:  # text labels: vectorised, a Python loop over an Arrow column is slow
+        missing = column.isna().to_numpy()
+        labels = column.astype(object).to_numpy()
+        if missing.any():
+            labels[missing] = [f"row {number}" for number in np.asarray(rows)[missing]]
+        labels = labels.tolist()
     if len(set(labels)) != len(labels):
         raise OrdinateError(
             f"The column '{id_column}' cannot label samples: some labels repeat or are blank. "
@@ -284,12 +291,17 @@ def _excluded_mask(labels: np.ndarray, excluded: tuple[str, ...], warnings: list
     return ~np.isin(labels, list(excluded))
 
 
-def _numeric_block(frame: pd.DataFrame, variables) -> np.ndarray:
+def _numeric_block(frame: pd.DataFrame, variables, rows: np.ndarray | None = None) -> np.ndarray:
+    """A C-ordered float64 copy of the chosen columns (and rows), filled in one pass."""
+    n = len(frame) if rows is None else int(rows.sum())
+    block = np.empty((n, len(variables)))
     try:
-        block = frame.loc[:, list(variables)].to_numpy(dtype=np.float64, na_value=np.nan, copy=True)
+        for j, variable in enumerate(variables):
+            column = frame[variable].to_numpy(dtype=np.float64, na_value=np.nan)
+            block[:, j] = column if rows is None else column[rows]
     except (TypeError, ValueError) as error:
         raise OrdinateError(f"Some chosen variables hold text rather than numbers ({error}).") from error
-    return np.ascontiguousarray(block)
+    return block
 
 
 def _apply_transforms(values: np.ndarray, variables, transforms, labels) -> None:

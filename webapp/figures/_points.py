@@ -130,11 +130,13 @@ def point_trace(
     custom = np.empty((m, 1 + len(hover)), dtype=object)
     custom[:, 0] = labels
     for j, (_, values) in enumerate(hover, start=1):
-        custom[:, j] = values.tolist()  # Python floats serialise far faster than numpy scalars
+        # Four significant digits, as the hover shows: a short string instead
+        # of a 17-digit float keeps the payload small.
+        custom[:, j] = np.char.mod("%.4g", values).tolist()
     shown, changed = escape_array(labels)
     label_ref = "%{text}" if (changed or show_text) else "%{customdata[0]}"
     lines = [f"<b>{label_ref}</b>", template_literal(name), *hover_lines]
-    lines += [f"{template_literal(col)}: %{{customdata[{j}]:.4g}}" for j, (col, _) in enumerate(hover, start=1)]
+    lines += [f"{template_literal(col)}: %{{customdata[{j}]}}" for j, (col, _) in enumerate(hover, start=1)]
     trace_type = go.Scattergl if webgl else go.Scatter
     marker = dict(color=style.colour, symbol=style.symbol, size=marker_size, opacity=0.88,
                   line=outline or dict(width=0.5, color="#FFFFFF"))

@@ -68,9 +68,10 @@ __all__ = [
 
 #: Above this many samples the scores plot shows a density view instead of points.
 DENSITY_THRESHOLD = 20_000
-#: Extra hover values are sent for at most this many points: each value costs
-#: serialisation time (about 1.7 s for 6 values of 100 000 points).
-HOVER_VALUES_LIMIT = DENSITY_THRESHOLD
+#: Extra hover values are sent for at most this many points: they cost more
+#: bytes than the coordinates, so beyond it only the label travels with each
+#: point (see docs/performance.md).
+HOVER_VALUES_LIMIT = 5_000
 #: Sample labels are written next to points only up to this many samples.
 LABEL_LIMIT = 300
 #: Number of cells along the longer axis of the density view.

@@ -196,7 +196,9 @@ def notes_annotation(notes: list[str], style: Style) -> dict:
 
 def new_figure(style: Style, *, title: str | None = None, notes: list[str] = (), **layout) -> go.Figure:
     """An empty figure with the base layout, updated with ``layout`` (figure-specific settings)."""
-    fig = go.Figure(layout=base_layout(style, title=title, notes=notes))
-    if layout:
-        fig.update_layout(**layout)
-    return fig
+    merged = base_layout(style, title=title, notes=notes)
+    for key, value in layout.items():
+        merged[key] = {**merged[key], **value} if isinstance(value, dict) and isinstance(merged.get(key), dict) else value
+    # Layouts built here are known to be valid (tests check every figure through
+    # plotly's validators): skipping per-property validation saves ~30 ms a figure.
+    return go.Figure(layout=merged, _validate=False)

@@ -268,6 +268,7 @@ def _scores_card() -> html.Section:
             ]),
         ]),
         _graph(SCORES_GRAPH, "scores-graph"),
+        _svg_button(SCORES_GRAPH),
         html.Div(id=SELECTION_BAR, className="selection-bar", children=[
             html.Span("Click a point to inspect it; draw a lasso or box to select several."),
             html.Button("Leave selected samples out", id=EXCLUDE_SELECTED, n_clicks=0, className="small-button"),
@@ -290,6 +291,7 @@ def _variance_card() -> html.Section:
             html.Div(id=VARIANCE_TABLE, className="table-wrap"),
             _graph(VARIANCE_GRAPH, "variance-graph"),
         ]),
+        _svg_button(VARIANCE_GRAPH),
     ])
 
 
@@ -311,6 +313,7 @@ def _diagnostics_card() -> html.Section:
             _graph(DIAGNOSTICS_GRAPH, "diagnostics-graph"),
             html.Div(id=FLAGGED_LIST, className="flagged-list"),
         ]),
+        _svg_button(DIAGNOSTICS_GRAPH),
         html.Div(id=CONTRIBUTIONS, className="contributions"),
     ])
 
@@ -327,6 +330,7 @@ def _loadings_card() -> html.Section:
             _graph(LOADINGS_GRAPH, "loadings-graph"),
             _graph(CIRCLE_GRAPH, "circle-graph"),
         ]),
+        _svg_button(f"{LOADINGS_GRAPH} {CIRCLE_GRAPH}"),
     ])
 
 
@@ -339,6 +343,13 @@ def _graph(graph_id: str, class_name: str) -> dcc.Loading:
         delay_show=400,
         children=dcc.Graph(id=graph_id, className=class_name, config=GRAPH_CONFIG),
     )
+
+
+def _svg_button(graph_ids: str) -> html.Button:
+    """Downloads the named plot(s) as SVG in the browser (assets/figure-download.js)."""
+    return html.Button("Download SVG", className="small-button svg-button", n_clicks=0,
+                       title="Download as a vector image (PNG: camera icon on the plot)",
+                       **{"data-svg-graph": graph_ids})
 
 
 def _field(label: str, control) -> html.Div:

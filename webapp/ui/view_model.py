@@ -13,6 +13,7 @@ import time
 from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 import plotly.graph_objects as go
 
 from webapp import __version__
@@ -284,17 +285,18 @@ def _groups(state: ViewState, table, fitted):
         column = table.group_columns[0] if table.group_columns else None
     if not column or column == NO_COLOUR or column not in table.frame.columns:
         return None, None
-    values = table.frame[column].to_numpy()[fitted.prepared.row_positions]
-    text = np.array([_group_text(v) for v in values], dtype=object)
-    return text, column
+    return group_labels(table.frame[column], fitted.prepared.row_positions), column
 
 
-def _group_text(value) -> str | None:
-    if value is None or (isinstance(value, float) and np.isnan(value)):
-        return None
-    if isinstance(value, float) and value.is_integer():
-        return str(int(value))
-    return str(value)
+def group_labels(column, rows: np.ndarray) -> np.ndarray:
+    """Group names as text for the given rows; missing values become None."""
+    values = column.iloc[rows]
+    missing = values.isna().to_numpy()
+    if pd.api.types.is_float_dtype(values) and np.all(np.mod(values.to_numpy()[~missing], 1) == 0):
+        values = values.fillna(0).astype(np.int64)  # 3.0 -> "3"
+    text = values.astype(str).to_numpy(dtype=object, copy=True)
+    text[missing] = None
+    return text
 
 
 def _scores_panel(state: ViewState, fitted, table, groups, pc_x: int, pc_y: int) -> go.Figure:
