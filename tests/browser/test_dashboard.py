@@ -197,3 +197,16 @@ def test_file_over_the_size_limit_is_refused_with_a_message(dash_duo, app, tmp_p
     status = _wait_for(lambda: "is-error" in dash_duo.find_element("#upload-status").get_attribute("class")
                        and dash_duo.find_element("#upload-status").text)
     assert "6.0 MB" in status and "5 MB" in status
+
+
+def test_svg_buttons_download_vector_images_in_the_browser(dash_duo, app, iris_csv):
+    _open_with_iris(dash_duo, app, iris_csv)
+    # Record what Plotly is asked to download instead of writing files.
+    dash_duo.driver.execute_script(
+        "window.__downloads = []; window.Plotly.downloadImage = function (gd, options) {"
+        " window.__downloads.push([gd.closest('.dash-graph').id, options.format]); return Promise.resolve(); };")
+    dash_duo.find_element(".scores-card .svg-button").click()
+    dash_duo.find_element(".loadings-card .svg-button").click()
+    downloads = _wait_for(lambda: len(dash_duo.driver.execute_script("return window.__downloads")) == 3
+                          and dash_duo.driver.execute_script("return window.__downloads"))
+    assert downloads == [["scores-graph", "svg"], ["loadings-graph", "svg"], ["circle-graph", "svg"]]

@@ -4,8 +4,12 @@ Reference values: Fisher's iris as shipped with scikit-learn; covariance-matrix
 PC1 share 92.46 % (widely published, quoted from memory).
 """
 
+import csv
+import io
 import json
 import time
+
+import numpy as np
 
 import pytest
 from selenium import webdriver
@@ -86,3 +90,30 @@ def test_present_mode_steps_through_three_views_by_keyboard(dash_duo, app_and_to
     time.sleep(0.5)
     assert dash_duo.find_element(".recipe-rail").is_displayed()
     assert "scale=none" in dash_duo.driver.current_url
+
+
+def test_exported_csv_from_the_page_is_safe_and_matches_the_view(dash_duo, tmp_path):
+    # OWASP CSV injection guidance: text cells starting with = + - @ are escaped.
+    frame = iris_frame()
+    frame.loc[0, "flower"] = '=HYPERLINK("http://example.invalid","click")'
+    frame.loc[1, "flower"] = "@SUM(A1:A9)"
+    path = tmp_path / "iris-injection.csv"
+    frame.to_csv(path, index=False)
+    app = create_app(AppConfig(data_dir=tmp_path / "data"))
+    dash_duo.start_server(app)
+    dash_duo.wait_for_element("#upload-input", timeout=TIMEOUT).send_keys(str(path))
+    dash_duo.wait_for_text_to_equal(FIRST_PERCENT, "72.96", timeout=TIMEOUT)
+    link = _wait_for(lambda: dash_duo.driver.find_elements("css selector", "#export-links a[href*='scores.csv']"))
+    dash_duo.driver.set_script_timeout(30)
+    text = dash_duo.driver.execute_async_script(
+        "const done = arguments[1]; fetch(arguments[0]).then(r => r.text()).then(done);",
+        link[0].get_attribute("href"))
+    rows = list(csv.reader(io.StringIO(text.lstrip("\ufeff"))))
+    labels = [row[0] for row in rows[1:]]
+    assert labels[0] == "'" + '=HYPERLINK("http://example.invalid","click")'
+    assert labels[1] == "'@SUM(A1:A9)"
+    assert labels[2] == "F002" and len(rows) == 151
+    header = rows[0]
+    pc1 = [float(row[header.index("PC1")]) for row in rows[1:]]
+    # PC1 variance of autoscaled iris = first correlation eigenvalue 2.9185 (published, from memory).
+    assert float(np.var(pc1, ddof=1)) == pytest.approx(2.9185, abs=1e-4)

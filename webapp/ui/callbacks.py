@@ -306,16 +306,17 @@ def _register_actions(app, services) -> None:
         return _search_if_changed(current, current.replace(picked=labels[0]))
 
     @app.callback(url_out, Output(L.NOTICES, "children", allow_duplicate=True),
-                  Output(L.MANAGE_LINKS, "data"), Input(L.UPLOAD_RESULT, "data"), State(L.MANAGE_LINKS, "data"),
-                  prevent_initial_call=True)
+                  Output(L.MANAGE_LINKS, "data"), Output(L.DATASET_DETAILS, "open"),
+                  Input(L.UPLOAD_RESULT, "data"), State(L.MANAGE_LINKS, "data"), prevent_initial_call=True)
     def open_uploaded(result, links):
         if not result:
             raise PreventUpdate
         if result.get("error"):
-            return no_update, notice_list((), (result["error"],)), no_update
+            return no_update, notice_list((), (result["error"],)), no_update, no_update
         manage = (result.get("summary") or {}).get("manage")
         links = {**(links or {}), result["token"]: manage} if manage else no_update
-        return "?" + to_query(ViewState(dataset=result["token"])), no_update, links
+        # Open "About this data" so the uploader sees the summary and the manage link.
+        return "?" + to_query(ViewState(dataset=result["token"])), no_update, links, True
 
     @app.callback(Output(L.MANAGE_BOX, "children"), Input(L.URL, "search"), Input(L.MANAGE_LINKS, "data"))
     def show_manage_link(search, links):

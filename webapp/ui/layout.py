@@ -19,6 +19,7 @@ MANAGE_BOX = "manage-box"
 NOTICES = "notices"
 DATASET_TITLE = "dataset-title"
 DATASET_SUMMARY = "dataset-summary"
+DATASET_DETAILS = "dataset-details"
 NOT_FOUND = "not-found"
 WORKSPACE = "workspace"
 LINK_TEXT = "link-text"
@@ -130,7 +131,7 @@ def _top_bar(config) -> html.Header:
             html.A("Ordinate", href="/", className="wordmark", title="Start page"),
             html.Div(className="dataset-heading", children=[
                 html.H1(id=DATASET_TITLE, className="dataset-title"),
-                html.Details(className="dataset-summary", children=[
+                html.Details(id=DATASET_DETAILS, className="dataset-summary", children=[
                     html.Summary("About this data"),
                     html.Div(id=DATASET_SUMMARY),
                     html.Div(id=MANAGE_BOX, className="manage-box"),

@@ -150,7 +150,7 @@ def build_view(services, state: ViewState, parse_notices=()) -> View:
 def _full_view(state: ViewState, resolved: Resolved, summary: dict, parse_notices) -> View:
     fitted, table = resolved.fitted, resolved.table
     pca = fitted.pca
-    notices = list(parse_notices) + list(resolved.notices) + list(fitted.warnings)
+    notices = list(parse_notices) + list(table.warnings) + list(resolved.notices) + list(fitted.warnings)
     k_max = pca.n_components
     pc_x, pc_y, loading_pc = (_clamp_pc(v, k_max, name, notices) for v, name in (
         (state.pc_x, "x axis"), (state.pc_y, "y axis"), (state.loading_pc, "loadings")))
