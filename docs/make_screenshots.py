@@ -29,6 +29,7 @@ sys.path.insert(0, str(ROOT))
 from webapp.app import DEMO_SETTING, create_app  # noqa: E402
 from webapp.config import AppConfig  # noqa: E402
 from webapp.state import ViewState, to_query  # noqa: E402
+from webapp.ui import view_model as vm  # noqa: E402
 
 OUT = ROOT / "docs" / "screenshots"
 PORT = 8097
@@ -39,7 +40,8 @@ FLAGS = ("--headless=new", "--no-sandbox", "--disable-dev-shm-usage", "--disable
 def main() -> None:
     data_dir = Path(tempfile.mkdtemp(prefix="ordinate-shots-"))
     app = create_app(AppConfig(data_dir=data_dir))
-    token = app.server.config["ordinate.services"].store.get_setting(DEMO_SETTING)
+    services = app.server.config["ordinate.services"]
+    token = services.store.get_setting(DEMO_SETTING)
     server = make_server("127.0.0.1", PORT, app.server, threaded=True)
     threading.Thread(target=server.serve_forever, daemon=True).start()
     OUT.mkdir(parents=True, exist_ok=True)
@@ -54,6 +56,14 @@ def main() -> None:
         _shot(browser, base + to_query(picked), "diagnostics-picked.png", (1280, 800), element=".diagnostics-card")
         _shot(browser, base + to_query(demo), "variance.png", (1280, 800), element=".variance-card")
         _shot(browser, base + "v=1&ds=AAAAAAAAAAAAAAAAAAAAAAAA", "not-found.png", (1280, 800))
+        first = vm.save_view(services, demo, title="Sites on PC1 and PC2",
+                             note="**Ostrava-Nord** separates along PC1; Lindholm and Brackwater overlap.",
+                             author="QC lab", parent=None)
+        vm.save_view(services, demo.replace(pc_y=3, sigma_levels=(2.0,)), title="PC3: heat treatment",
+                     note="Colour b* and particle size drive PC3.", author="QC lab", parent=None)
+        _shot(browser, f"http://127.0.0.1:{PORT}/v/{first.view_id}", "saved-view.png", (1280, 800))
+        presenting = ViewState(dataset=token, present=True, slide=2)
+        _shot(browser, base + to_query(presenting), "presentation.png", (1600, 900))
     finally:
         browser.quit()
         server.shutdown()

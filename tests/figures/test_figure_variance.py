@@ -110,7 +110,8 @@ def test_scree_plot_values(iris_spectrum):
     band = [s for s in fig.layout.shapes if s.type == "rect"]
     edge = [s for s in fig.layout.shapes if s.name == "components-kept"]
     assert band[0].x1 == 2.5 and edge[0].x0 == 2.5 and edge[0].label.text == "K = 2 kept"
-    assert list(fig.layout.xaxis.ticktext) == ["PC1", "PC2", "PC3", "PC4"]
+    assert list(fig.layout.xaxis.ticktext) == ["1", "2", "3", "4"]
+    assert fig.layout.xaxis.title.text == "Component (PC number)"
 
 
 def test_total_variance_is_right_when_only_leading_eigenvalues_are_given(iris_spectrum):

@@ -173,8 +173,9 @@ def variance_figure(
     fig = new_figure(
         style,
         notes=notes,
-        xaxis={**axis_style("Component", zero_line=False), "tickmode": "array", "tickvals": pcs.tolist(),
-               "ticktext": [f"PC{i}" for i in pcs.tolist()], "range": [0.4, m + 0.6]},
+        # Plain numbers: "PC10".."PC20" would be rotated and crowd the legend.
+        xaxis={**axis_style("Component (PC number)", zero_line=False), "tickmode": "array", "tickvals": pcs.tolist(),
+               "ticktext": [str(i) for i in pcs.tolist()], "tickangle": 0, "range": [0.4, m + 0.6]},
         yaxis={**axis_style("Explained variance (%)"), "range": [0, reference_max * 1.12], "rangemode": "tozero"},
         yaxis2={**axis_style("Cumulative (%)", zero_line=False), "overlaying": "y", "side": "right",
                 "range": [0, 105], "showgrid": False,

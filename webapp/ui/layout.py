@@ -242,7 +242,7 @@ def _cards() -> html.Main:
             html.H2("Provenance"), html.Div(id=PROVENANCE),
             html.H2("Downloads", className="downloads-title"),
             html.P("CSV files open safely in spreadsheet programs (text that could run as a formula is escaped). "
-                   "The model file scores new batches with `ordinate project`.", className="quiet"),
+                   "The model file scores new batches with the command ordinate project.", className="quiet"),
             html.Div(id=EXPORT_LINKS, className="export-links"),
         ]),
     ])
