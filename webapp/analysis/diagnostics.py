@@ -36,6 +36,7 @@ import numbers
 import numpy as np
 from scipy import stats
 
+from webapp.analysis.checks import float_array, whole_number
 from webapp.analysis.errors import OrdinateError
 
 __all__ = [
@@ -87,27 +88,8 @@ def _check_confidence(confidence: float) -> float:
     return value
 
 
-def _check_count(value: int, name: str, minimum: int) -> int:
-    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
-        raise OrdinateError(f"The {name} must be a whole number, not {value!r}.")
-    value = int(value)
-    if value < minimum:
-        raise OrdinateError(f"The {name} must be at least {minimum}; {value} was given.")
-    return value
-
-
-def _as_float_array(values, name: str, ndim: int) -> np.ndarray:
-    try:
-        array = np.asarray(values, dtype=float)
-    except (TypeError, ValueError) as exc:
-        raise OrdinateError(f"The {name} must be numbers only ({exc}).") from None
-    if array.ndim != ndim:
-        shape = "a list of numbers" if ndim == 1 else "a table (2-D array)"
-        raise OrdinateError(
-            f"The {name} must be {shape}; got an array with {array.ndim} dimension(s), "
-            f"shape {array.shape}."
-        )
-    return array
+_check_count = whole_number
+_as_float_array = float_array
 
 
 def _check_finite(array: np.ndarray, name: str) -> None:

@@ -23,6 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from webapp.analysis.diagnostics import _check_confidence, _check_count, t2_limit
+from webapp.analysis.checks import float_array
 from webapp.analysis.errors import OrdinateError
 
 __all__ = [
@@ -89,11 +90,8 @@ def _check_positive_real(value, name: str) -> float:
 
 
 def _check_points(points, name: str) -> np.ndarray:
-    try:
-        xy = np.asarray(points, dtype=float)
-    except (TypeError, ValueError) as exc:
-        raise OrdinateError(f"The {name} must be numbers only ({exc}).") from None
-    if xy.ndim != 2 or xy.shape[1] != 2:
+    xy = float_array(points, name, 2)
+    if xy.shape[1] != 2:
         raise OrdinateError(
             f"The {name} must be a table with two columns (x and y); got shape {xy.shape}."
         )

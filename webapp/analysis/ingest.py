@@ -111,7 +111,8 @@ import os
 import re
 import warnings
 from collections.abc import Iterator, Mapping, Sequence
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field
+from dataclasses import fields as dataclass_fields
 from types import MappingProxyType
 
 import numpy as np
@@ -235,7 +236,7 @@ class Table:
 
     def __getstate__(self) -> dict:
         # MappingProxyType cannot be pickled; the compute cache pickles tables.
-        state = {f.name: getattr(self, f.name) for f in fields(self)}
+        state = {f.name: getattr(self, f.name) for f in dataclass_fields(self)}
         state["missing_counts"] = dict(self.missing_counts)
         return state
 

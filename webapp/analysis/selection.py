@@ -37,6 +37,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg
 
+from webapp.analysis.checks import float_array, whole_number
 from webapp.analysis.errors import OrdinateError
 
 __all__ = [
@@ -115,13 +116,7 @@ class ComponentAdvice:
 # argument checks
 # --------------------------------------------------------------------------
 
-def _check_int(value, name: str, minimum: int) -> int:
-    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
-        raise OrdinateError(f"The {name} must be a whole number, not {value!r}.")
-    value = int(value)
-    if value < minimum:
-        raise OrdinateError(f"The {name} must be at least {minimum}; {value} was given.")
-    return value
+_check_int = whole_number
 
 
 def _check_fraction(value, name: str) -> float:
@@ -136,11 +131,8 @@ def _check_fraction(value, name: str) -> float:
 
 
 def _check_vector(values, name: str) -> np.ndarray:
-    try:
-        array = np.asarray(values, dtype=float)
-    except (TypeError, ValueError) as exc:
-        raise OrdinateError(f"The {name} must be numbers only ({exc}).") from None
-    if array.ndim != 1 or array.size == 0:
+    array = float_array(values, name, 1)
+    if array.size == 0:
         raise OrdinateError(f"The {name} must be a non-empty list of numbers; got shape {array.shape}.")
     if not np.all(np.isfinite(array)):
         raise OrdinateError(f"The {name} contain a missing or infinite value.")

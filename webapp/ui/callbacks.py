@@ -15,7 +15,6 @@ from __future__ import annotations
 from dash import ALL, Input, Output, State, ctx, no_update
 from dash.exceptions import PreventUpdate
 
-from webapp.analysis.errors import OrdinateError
 from webapp.state import NO_COLOUR, ViewState, parse_query, to_query
 from webapp.ui import layout as L
 from webapp.ui import view_model as vm
