@@ -35,6 +35,7 @@ from webapp.storage import DataStore, DatasetRecord
 
 DEFAULT_CACHE_BYTES = 8 * 2**30
 MEMO_ENTRIES = 4
+DRAWING_MEMO_ENTRIES = 32
 
 
 class ComputeLayer:
@@ -43,6 +44,7 @@ class ComputeLayer:
         self.cache = diskcache.Cache(str(cache_dir), size_limit=size_limit, eviction_policy="least-recently-used")
         self._memo: OrderedDict[str, object] = OrderedDict()
         self._memo_lock = threading.Lock()
+        self._drawings: OrderedDict[tuple, object] = OrderedDict()
 
     # --- public --------------------------------------------------------------
 
@@ -56,6 +58,23 @@ class ComputeLayer:
 
     def diagnostics(self, record: DatasetRecord, recipe: Recipe, components, confidence: float) -> Diagnostics:
         return diagnose(self.fitted(record, recipe), components, confidence)
+
+    def drawing(self, key: tuple, build):
+        """A figure (or other derived, immutable value) built once per process for ``key``.
+
+        The key must hold everything the value depends on, starting with the fit
+        key; it saves rebuilding the panels a visual change did not touch.
+        """
+        with self._memo_lock:
+            if key in self._drawings:
+                self._drawings.move_to_end(key)
+                return self._drawings[key]
+        value = build()
+        with self._memo_lock:
+            self._drawings[key] = value
+            while len(self._drawings) > DRAWING_MEMO_ENTRIES:
+                self._drawings.popitem(last=False)
+        return value
 
     def is_fitted(self, record: DatasetRecord, recipe: Recipe) -> bool:
         key = fit_key(record.content_hash, recipe)

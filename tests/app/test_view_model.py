@@ -131,3 +131,16 @@ def test_variable_correlations_match_numpy(services, iris_token):
     X, T = resolved.fitted.prepared.matrix, resolved.fitted.pca.scores
     expected = np.array([[np.corrcoef(X[:, j], T[:, a])[0, 1] for a in range(4)] for j in range(4)])
     np.testing.assert_allclose(ours, expected, atol=1e-10)
+
+
+def test_start_page_without_demo_invites_an_upload(tmp_path):
+    from webapp.app import create_app
+    from webapp.config import AppConfig
+    from webapp.ui.callbacks import _not_found_outputs
+
+    app = create_app(AppConfig(data_dir=tmp_path / "empty", demo_dataset=None))
+    assert app.server.test_client().get("/").status_code == 200  # no demo: no redirect
+    outputs = _not_found_outputs((), start_page=True)
+    assert outputs[0] == "Load a CSV file to begin"
+    assert "Drop a CSV" in str(outputs[3])
+    assert _not_found_outputs((), start_page=False)[0] == "Dataset not found"

@@ -26,6 +26,7 @@ from webapp.ui.components import (
     manage_box,
     notice_list,
     not_found_card,
+    start_card,
     provenance_block,
     transform_chips,
     variance_table,
@@ -102,15 +103,15 @@ def _register_show_view(app, services) -> None:
         try:
             view = vm.build_view(services, shown, notices + slide_notices)
         except vm.DatasetNotFound:
-            return _not_found_outputs(notices)
+            return _not_found_outputs(notices, start_page=state.dataset is None)
         return _view_outputs(view)
 
 
-def _not_found_outputs(notices) -> list:
+def _not_found_outputs(notices, *, start_page: bool) -> list:
     outputs = [no_update] * len(_VIEW_OUTPUTS)
-    outputs[0] = "Dataset not found"
+    outputs[0] = "Load a CSV file to begin" if start_page else "Dataset not found"
     outputs[2] = notice_list(notices, ())
-    outputs[3] = not_found_card()
+    outputs[3] = start_card() if start_page else not_found_card()
     outputs[4] = False
     outputs[5] = True
     return outputs

@@ -26,6 +26,17 @@ def not_found_card() -> html.Div:
     ])
 
 
+def start_card() -> html.Div:
+    return html.Div(className="card not-found-card", children=[
+        html.H2("Load a CSV file to begin"),
+        html.P(
+            "Drop a CSV or TSV file of samples (rows) by measured variables (columns) on “Load a CSV” above, "
+            "or choose one. Ordinate detects the delimiter, decimal mark, sample labels and group columns, "
+            "and opens the analysis at once; the address bar then holds a link to it for your colleagues."
+        ),
+    ])
+
+
 def dataset_summary(summary: dict) -> list:
     rows = [
         ("File", summary.get("filename")),

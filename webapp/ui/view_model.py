@@ -22,6 +22,7 @@ from webapp.analysis.diagnostics import q_residual_row, t2_contributions
 from webapp.analysis.ellipses import hotelling_ellipse, try_sigma_ellipse
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.recipe import Recipe
+from webapp.compute import fit_key
 from webapp.figures import (
     axis_title,
     contributions_figure,
@@ -144,11 +145,12 @@ def build_view(services, state: ViewState, parse_notices=()) -> View:
         resolved = resolve(services, state)
     except OrdinateError as error:
         return _failed_view(state, record, table, parse_notices, error, summary)
-    return _full_view(state, resolved, summary, tuple(parse_notices))
+    return _full_view(services, state, resolved, summary, tuple(parse_notices))
 
 
-def _full_view(state: ViewState, resolved: Resolved, summary: dict, parse_notices) -> View:
+def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, parse_notices) -> View:
     fitted, table = resolved.fitted, resolved.table
+    fit = fit_key(resolved.record.content_hash, resolved.recipe)
     pca = fitted.pca
     notices = list(parse_notices) + list(table.warnings) + list(resolved.notices) + list(fitted.warnings)
     k_max = pca.n_components
@@ -176,27 +178,34 @@ def _full_view(state: ViewState, resolved: Resolved, summary: dict, parse_notice
         loading_pc=loading_pc,
         scores_figure=scores,
         variance_rows=rows,
-        variance_figure=variance_figure(
+        variance_figure=services.compute.drawing(("variance", fit, diagnostics.components, state.present),
+                                                 lambda: variance_figure(
             eigenvalues=pca.eigenvalues, explained_ratio=pca.explained_variance_ratio,
             cumulative=pca.cumulative_explained, broken_stick=fitted.advice.broken_stick_expectation,
             parallel_threshold=fitted.advice.parallel_threshold, mean_eigenvalue=pca.total_variance / pca.n_variables,
             components=diagnostics.components, total_variance=pca.total_variance, presentation=state.present,
-        ),
+        )),
         variance_tsv=variance_table_tsv(rows),
         advice_text=advice_text(fitted.advice, diagnostics.components, state.components is None),
-        diagnostics_figure=diagnostics_figure(
-            t2=diagnostics.t2, q=diagnostics.q, labels=np.asarray(fitted.prepared.sample_labels, dtype=object),
-            groups=groups, t2_limit=diagnostics.t2_limit, q_limit=diagnostics.q_limit,
-            confidence=diagnostics.confidence, highlighted=state.picked, presentation=state.present,
-        ),
-        flagged=flagged_samples(fitted.prepared.sample_labels, diagnostics.t2, diagnostics.q,
-                                diagnostics.t2_limit, diagnostics.q_limit),
+        diagnostics_figure=services.compute.drawing(
+            ("diagnostics", fit, diagnostics.components, diagnostics.confidence, state.picked, colour_column,
+             state.present),
+            lambda: diagnostics_figure(
+                t2=diagnostics.t2, q=diagnostics.q, labels=np.asarray(fitted.prepared.sample_labels, dtype=object),
+                groups=groups, t2_limit=diagnostics.t2_limit, q_limit=diagnostics.q_limit,
+                confidence=diagnostics.confidence, highlighted=state.picked, presentation=state.present,
+            )),
+        flagged=services.compute.drawing(
+            ("flagged", fit, diagnostics.components, diagnostics.confidence),
+            lambda: flagged_samples(fitted.prepared.sample_labels, diagnostics.t2, diagnostics.q,
+                                    diagnostics.t2_limit, diagnostics.q_limit)),
         contributions=_contributions(state, fitted, diagnostics),
-        loadings_figure=loadings_bar_figure(
+        loadings_figure=services.compute.drawing(("loadings", fit, loading_pc, state.present), lambda: loadings_bar_figure(
             variables=fitted.prepared.variables, loadings=pca.loadings[:, loading_pc - 1], component=loading_pc,
             explained_ratio=float(pca.explained_variance_ratio[loading_pc - 1]), presentation=state.present,
-        ),
-        circle_figure=_circle(fitted, pc_x, pc_y, state.present),
+        )),
+        circle_figure=services.compute.drawing(("circle", fit, pc_x, pc_y, state.present),
+                                               lambda: _circle(fitted, pc_x, pc_y, state.present)),
         provenance=provenance(resolved, diagnostics, colour_column),
     )
 
