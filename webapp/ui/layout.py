@@ -133,8 +133,10 @@ def _top_bar(config) -> html.Header:
                 html.H1(id=DATASET_TITLE, className="dataset-title"),
                 html.Details(id=DATASET_DETAILS, className="dataset-summary", children=[
                     html.Summary("About this data"),
-                    html.Div(id=DATASET_SUMMARY),
-                    html.Div(id=MANAGE_BOX, className="manage-box"),
+                    html.Div(className="summary-popover", children=[
+                        html.Div(id=DATASET_SUMMARY),
+                        html.Div(id=MANAGE_BOX, className="manage-box"),
+                    ]),
                 ]),
             ]),
             # assets/upload.js adds the file input and streams the file to /api/upload.

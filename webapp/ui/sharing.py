@@ -115,6 +115,7 @@ def _register_save(app, services) -> None:
         Output(L.SAVE_TITLE, "value"),
         Output(L.SAVE_NOTE, "value"),
         Output(L.SAVE_RESULT, "children", allow_duplicate=True),
+        Output(L.DATASET_DETAILS, "open", allow_duplicate=True),
         Input(L.SAVE_OPEN, "n_clicks"),
         Input(L.SAVE_CANCEL, "n_clicks"),
         Input({"type": "duplicate", "index": ALL}, "n_clicks"),
@@ -124,16 +125,16 @@ def _register_save(app, services) -> None:
     )
     def toggle_save_panel(_open, _cancel, duplicate, hidden, search):
         if ctx.triggered_id == L.SAVE_CANCEL:
-            return True, no_update, no_update, None
+            return True, no_update, no_update, None, no_update
         if isinstance(ctx.triggered_id, dict) and not any(duplicate or ()):
             raise PreventUpdate
         if ctx.triggered_id == L.SAVE_OPEN and not hidden:
-            return True, no_update, no_update, None
+            return True, no_update, no_update, None, no_update
         state, _ = parse_query(search)
         info = vm.saved_view_info(services, state)
         title = f"Copy of {info['title']}" if info else ""
         note = info["note"] if info else ""
-        return False, title, note, None
+        return False, title, note, None, False  # close the data summary so it does not cover the form
 
     @app.callback(
         Output(L.URL, "search", allow_duplicate=True),
