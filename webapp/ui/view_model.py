@@ -21,6 +21,7 @@ from webapp.analysis import ENGINE_VERSION
 from webapp.analysis.diagnostics import q_residual_row, t2_contributions
 from webapp.analysis.ellipses import hotelling_ellipse, try_sigma_ellipse
 from webapp.analysis.errors import OrdinateError
+from webapp.analysis.pipeline import diagnose
 from webapp.analysis.recipe import Recipe
 from webapp.compute import fit_key
 from webapp.figures import (
@@ -96,10 +97,12 @@ def resolve(services, state: ViewState) -> Resolved:
     record = services.store.dataset(state.dataset)
     if record is None:
         raise DatasetNotFound(state.dataset)
-    table = services.compute.table(record)
+    return _resolve_table(services, record, services.compute.table(record), state)
+
+
+def _resolve_table(services, record, table, state: ViewState) -> Resolved:
     recipe, notices = recipe_for(state, table)
-    fitted = services.compute.fitted(record, recipe)
-    return Resolved(record, table, recipe, fitted, notices)
+    return Resolved(record, table, recipe, services.compute.fitted(record, recipe), notices)
 
 
 def recipe_for(state: ViewState, table) -> tuple[Recipe, tuple[str, ...]]:
@@ -142,7 +145,7 @@ def build_view(services, state: ViewState, parse_notices=()) -> View:
         return _failed_view(state, record, None, parse_notices, error)
     summary = table_summary(record, table)
     try:
-        resolved = resolve(services, state)
+        resolved = _resolve_table(services, record, table, state)
     except OrdinateError as error:
         return _failed_view(state, record, table, parse_notices, error, summary)
     return _full_view(services, state, resolved, summary, tuple(parse_notices))
@@ -157,7 +160,7 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
     pc_x, pc_y, loading_pc = (_clamp_pc(v, k_max, name, notices) for v, name in (
         (state.pc_x, "x axis"), (state.pc_y, "y axis"), (state.loading_pc, "loadings")))
     components = _components_choice(state, fitted, notices)
-    diagnostics = _diagnose(fitted, components, state.confidence)
+    diagnostics = diagnose(fitted, components, state.confidence)
     groups, colour_column = _groups(state, table, fitted)
     scores = _scores_panel(state, fitted, table, groups, pc_x, pc_y)
     rows = variance_table_rows(
@@ -280,12 +283,6 @@ def _components_choice(state: ViewState, fitted, notices: list):
         notices.append(f"K = {state.components} is more than the {available} components available; using {available}.")
         return available
     return state.components
-
-
-def _diagnose(fitted, components, confidence):
-    from webapp.analysis.pipeline import diagnose
-
-    return diagnose(fitted, components, confidence)
 
 
 def _groups(state: ViewState, table, fitted):
