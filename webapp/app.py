@@ -27,7 +27,7 @@ from webapp.state import ViewState, parse_query, to_query
 from webapp.storage import DataStore
 from webapp.ui.callbacks import register_callbacks
 from webapp.ui.layout import build_layout
-from webapp.ui.view_model import table_summary
+from webapp.ui.view_model import recipe_for, table_summary
 from webapp.upload import register_upload_route
 
 ASSETS = Path(__file__).resolve().parent.parent / "assets"
@@ -84,6 +84,9 @@ def _inspect_upload(services: Services, record) -> dict:
     receives it, and only its holder can rename or delete the dataset.
     """
     table = services.compute.table(record)
+    # The browser opens the default view next: have its fit under way already.
+    recipe, _ = recipe_for(ViewState(dataset=record.token), table)
+    services.compute.fit_in_background(record, recipe)
     return {**table_summary(record, table), "manage": manage_link(record)}
 
 

@@ -36,6 +36,7 @@ from webapp.storage import DataStore, DatasetRecord
 DEFAULT_CACHE_BYTES = 8 * 2**30
 MEMO_ENTRIES = 4
 DRAWING_MEMO_ENTRIES = 32
+LOCK_SECONDS = 900
 
 
 class ComputeLayer:
@@ -51,6 +52,18 @@ class ComputeLayer:
     def table(self, record: DatasetRecord) -> Table:
         key = f"table/{ENGINE_VERSION}/{record.content_hash}"
         return self._cached(key, lambda: read_table(self.store.blob_path(record), filename=record.filename), "parses")
+
+    def fit_in_background(self, record: DatasetRecord, recipe: Recipe) -> threading.Thread:
+        """Start fitting now (e.g. while the browser is still on its way to the new view)."""
+        thread = threading.Thread(target=self._quiet_fit, args=(record, recipe), daemon=True)
+        thread.start()
+        return thread
+
+    def _quiet_fit(self, record, recipe) -> None:
+        try:
+            self.fitted(record, recipe)
+        except Exception:  # the request that needs the fit reports any error itself
+            pass
 
     def fitted(self, record: DatasetRecord, recipe: Recipe) -> FittedRecipe:
         key = fit_key(record.content_hash, recipe)
@@ -102,11 +115,16 @@ class ComputeLayer:
                 return self._memo[key]
         value = self.cache.get(key)
         if value is None:
-            # Errors (OrdinateError) propagate and are not cached: the user may
-            # fix the recipe, and a transient failure must not stick.
-            value = compute()
-            self.cache.set(key, value)
-            self.cache.incr(f"stats/{counter}")
+            # One computation per key across threads and worker processes: the
+            # others wait for it (the lock expires if its holder dies).
+            with diskcache.Lock(self.cache, f"lock/{key}", expire=LOCK_SECONDS):
+                value = self.cache.get(key)
+                if value is None:
+                    # Errors (OrdinateError) propagate and are not cached: the user may
+                    # fix the recipe, and a transient failure must not stick.
+                    value = compute()
+                    self.cache.set(key, value)
+                    self.cache.incr(f"stats/{counter}")
         with self._memo_lock:
             self._memo[key] = value
             while len(self._memo) > MEMO_ENTRIES:

@@ -144,3 +144,18 @@ def test_start_page_without_demo_invites_an_upload(tmp_path):
     assert outputs[0] == "Load a CSV file to begin"
     assert "Drop a CSV" in str(outputs[3])
     assert _not_found_outputs((), start_page=False)[0] == "Dataset not found"
+
+
+def test_concurrent_requests_for_one_fit_compute_it_once(services, iris_token):
+    import threading
+
+    state = ViewState(dataset=iris_token, scaling="range")
+    record = services.store.dataset(iris_token)
+    recipe = vm.recipe_for(state, services.compute.table(record))[0]
+    threads = [threading.Thread(target=services.compute.fitted, args=(record, recipe)) for _ in range(4)]
+    threads.append(services.compute.fit_in_background(record, recipe))
+    for thread in threads[:4]:
+        thread.start()
+    for thread in threads:
+        thread.join(60)
+    assert services.compute.stats()["fits"] == 1
