@@ -385,3 +385,15 @@ def test_group_order_pins_styles():
                         x_title="a", y_title="b", group_order=["a", "b", "c"])
     assert fig.data[0].marker.color == group_style(2).colour
     assert isinstance(fig, go.Figure)
+
+
+def test_arrow_cap_keeps_the_longest_and_says_so():
+    rng = np.random.default_rng(4)
+    loadings = rng.normal(size=(30, 2))
+    names = [f"v{i}" for i in range(30)]
+    arrows = loading_arrows(loadings, names, np.array([2.0, 1.0]), "distance", 3.0, max_arrows=20)
+    lengths = np.hypot(loadings[:, 0], loadings[:, 1])
+    expected = {names[i] for i in np.argsort(-lengths)[:20]}
+    assert set(arrows.variables) == expected and arrows.left_out == 10
+    assert "The 20 longest of 30 arrows are drawn." in arrows.caption
+    assert "longest" not in loading_arrows(loadings, names, np.array([2.0, 1.0]), "distance", 3.0).caption

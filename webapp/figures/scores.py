@@ -107,21 +107,27 @@ class LoadingArrows:
     dy: np.ndarray
     scaling: str
     factor: float
+    left_out: int = 0  # shorter arrows not drawn (see ``max_arrows``)
 
     @property
     def caption(self) -> str:
         """One sentence that states the scaling and the stretch factor (plain text)."""
         s = f"{self.factor:.3g}"
         if self.scaling == "correlation":
-            return (
+            text = (
                 f"Correlation biplot: arrows are variable–component correlations "
                 f"(loading × √eigenvalue; correlations for autoscaled data) × {s}. "
                 f"Compare arrows with each other, not with the sample positions."
             )
-        return (
-            f"Distance biplot: arrows are loadings × {s}. "
-            f"A sample's projection on an arrow follows its value of that variable."
-        )
+        else:
+            text = (
+                f"Distance biplot: arrows are loadings × {s}. "
+                f"A sample's projection on an arrow follows its value of that variable."
+            )
+        if self.left_out:
+            shown = len(self.variables)
+            text += f" The {shown} longest of {shown + self.left_out} arrows are drawn."
+        return text
 
 
 def loading_arrows(
@@ -173,6 +179,7 @@ def loading_arrows(
 
     arrows = P * np.sqrt(lam) if scaling == "correlation" else P.copy()
     lengths = np.hypot(arrows[:, 0], arrows[:, 1])
+    total = lengths.size
     if max_arrows is not None and max_arrows < lengths.size:
         keep = np.sort(np.argsort(-lengths, kind="stable")[: max(int(max_arrows), 0)])
         arrows, lengths, names = arrows[keep], lengths[keep], tuple(names[i] for i in keep)
@@ -182,7 +189,8 @@ def loading_arrows(
     dx, dy = arrows[:, 0] * factor, arrows[:, 1] * factor
     dx.setflags(write=False)
     dy.setflags(write=False)
-    return LoadingArrows(variables=names, dx=dx, dy=dy, scaling=scaling, factor=factor)
+    return LoadingArrows(variables=names, dx=dx, dy=dy, scaling=scaling, factor=factor,
+                         left_out=total - len(names))
 
 
 def arrow_annotations(

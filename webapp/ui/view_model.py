@@ -40,6 +40,8 @@ from webapp.figures import (
 from webapp.state import MAX_SIGMA, MAX_SIGMA_LEVELS, NO_COLOUR, ViewState, parse_query, to_query
 
 HOVER_VARIABLES = 6
+# More arrows than this are unreadable on a biplot and slow to draw; the caption says so.
+MAX_BIPLOT_ARROWS = 20
 MAX_TABLE_COMPONENTS = 20
 
 
@@ -321,6 +323,7 @@ def _scores_panel(state: ViewState, fitted, table, groups, pc_x: int, pc_y: int)
             pca.loadings[:, [pc_x - 1, pc_y - 1]], prepared.variables,
             pca.eigenvalues[[pc_x - 1, pc_y - 1]], state.biplot_scaling,
             float(np.max(np.abs(np.concatenate([x, y])))) if x.size else 1.0,
+            max_arrows=MAX_BIPLOT_ARROWS,
         )
     hover = {v: table.frame[v].to_numpy()[prepared.row_positions] for v in prepared.variables[:HOVER_VARIABLES]}
     return scores_figure(
