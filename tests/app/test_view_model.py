@@ -6,6 +6,7 @@ share 92.46 %, widely published, quoted from memory) and scikit-learn's PCA.
 """
 
 import numpy as np
+import pandas as pd
 import pytest
 from sklearn.decomposition import PCA
 
@@ -159,3 +160,29 @@ def test_concurrent_requests_for_one_fit_compute_it_once(services, iris_token):
     for thread in threads:
         thread.join(60)
     assert services.compute.stats()["fits"] == 1
+
+
+def test_wide_data_with_more_variables_than_samples(services):
+    # Omics-shaped data (40 samples x 300 variables, seeded): the Gram solver is
+    # used, every rule's count fits the table, and arrows are capped on the biplot.
+    rng = np.random.default_rng(1)
+    values = rng.standard_normal((40, 3)) @ rng.standard_normal((3, 300)) + rng.standard_normal((40, 300))
+    frame = pd.DataFrame(values, columns=[f"gene_{j}" for j in range(300)])
+    frame.insert(0, "sample", [f"P{i}" for i in range(40)])
+    frame.insert(1, "arm", ["A", "B"] * 20)
+    token = services.store.add_bytes(frame.to_csv(index=False).encode(), "omics.csv").token
+    view = vm.build_view(services, ViewState(dataset=token))
+    assert view.errors == () and view.provenance["Solver"] == "gram"
+    assert len(view.variance_rows) == 20 and all(row["kaiser"] for row in view.variance_rows)
+    assert sum(1 for a in view.scores_figure.layout.annotations if a.showarrow) == vm.MAX_BIPLOT_ARROWS
+    assert sum(1 for a in view.circle_figure.layout.annotations if a.showarrow) == vm.MAX_CIRCLE_ARROWS
+    assert len(view.circle_figure.data[-1].x) == 300  # every variable is still a point
+    # Sample and component counts: 40 centred samples have at most 39 components.
+    assert view.controls.pc_options[-1]["value"] == 39
+
+
+def test_unexpected_failure_is_a_message_not_a_traceback(monkeypatch):
+    from webapp.ui import callbacks
+
+    outputs = callbacks._failure_outputs(())
+    assert callbacks.UNEXPECTED_FAILURE in str(outputs[2]) and "Traceback" not in str(outputs)

@@ -60,8 +60,12 @@ def test_table_rows_against_numpy_ratios(iris_spectrum):
     assert [r["broken_stick"] for r in rows] == [True, False, False, False]
     assert [r["parallel"] for r in rows] == [None] * 4
     assert [r["kept"] for r in rows] == [True, True, False, False]
+    # Only the leading components are tabled: a count beyond them marks every row shown
+    # (wide data: Kaiser can keep 39 components while the table shows 20).
+    wide = variance_table_rows(eigenvalues, ratio, cumulative, kaiser=5, broken_stick=1, parallel=None, components=2)
+    assert [r["kaiser"] for r in wide] == [True] * 4
     with pytest.raises(OrdinateError):
-        variance_table_rows(eigenvalues, ratio, cumulative, kaiser=5, broken_stick=1, parallel=None, components=2)
+        variance_table_rows(eigenvalues, ratio, cumulative, kaiser=-1, broken_stick=1, parallel=None, components=2)
 
 
 def test_tsv_and_csv_format(iris_spectrum):

@@ -90,8 +90,13 @@ def correlation_circle_figure(
     x_title: str,
     y_title: str,
     presentation: bool = False,
+    max_arrows: int | None = None,
 ) -> go.Figure:
     """Correlations of each variable with two components, as arrows inside the unit circle.
+
+    With more than ``max_arrows`` variables, only the ones farthest from the
+    origin get an arrow and a name; every variable stays a point with hover text,
+    and a note says how many are named.
 
     Equal axis scales, both axes fixed to :data:`CIRCLE_RANGE`; the unit
     circle is solid, the radius-0.5 circle dotted. Arrows are annotations in
@@ -106,8 +111,16 @@ def correlation_circle_figure(
     phi = np.linspace(0.0, 2.0 * np.pi, _CIRCLE_POINTS)
     circle_x, circle_y = np.cos(phi), np.sin(phi)
     circle_x[-1], circle_y[-1] = circle_x[0], circle_y[0]
+    radius_of = np.hypot(rx, ry)
+    named = np.arange(len(names))
+    notes = []
+    if max_arrows is not None and len(names) > max_arrows:
+        named = np.sort(np.argsort(-radius_of, kind="stable")[:max_arrows])
+        notes.append(f"Arrows for the {max_arrows} of {len(names)} variables farthest from the centre; "
+                     f"the others are dots (hover to read them).")
     fig = new_figure(
         style,
+        notes=notes,
         xaxis={**axis_style(x_title), "range": list(CIRCLE_RANGE), "constrain": "domain"},
         yaxis={**axis_style(y_title), "range": list(CIRCLE_RANGE), "scaleanchor": "x", "scaleratio": 1,
                "constrain": "domain"},
@@ -121,10 +134,11 @@ def correlation_circle_figure(
         ))
     # Invisible points at the tips carry the hover text (annotations have none).
     fig.add_trace(go.Scatter(
-        x=rx, y=ry, mode="markers", marker=dict(size=style.marker_size, color=ARROW_COLOUR, opacity=0.0),
+        x=rx, y=ry, mode="markers",
+        marker=dict(size=style.marker_size * 0.6, color=ARROW_COLOUR, opacity=0.45 if notes else 0.0),
         customdata=np.array([escape_text(v) for v in names], dtype=object), name="variables",
         hovertemplate="<b>%{customdata}</b><br>r with x: %{x:.3f}<br>r with y: %{y:.3f}<extra></extra>",
     ))
     fig.update_layout(annotations=list(fig.layout.annotations) + arrow_annotations(
-        names, rx, ry, style, labels_inside=True))
+        [names[i] for i in named], rx[named], ry[named], style, labels_inside=True))
     return fig

@@ -207,9 +207,14 @@ TABLE_COLUMNS: tuple[tuple[str, str], ...] = (
 
 
 def _count(value, name: str, limit: int) -> int:
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or not (0 <= value <= limit):
-        raise OrdinateError(f"The {name} must be a whole number from 0 to {limit}; got {value!r}.")
-    return int(value)
+    """A rule's count of components, for a table of ``limit`` rows.
+
+    A count beyond the rows shown (only the leading components are tabled)
+    means every shown row passes the rule.
+    """
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 0:
+        raise OrdinateError(f"The {name} must be a whole number of at least 0; got {value!r}.")
+    return min(int(value), limit)
 
 
 def variance_table_rows(

@@ -12,6 +12,8 @@ the controls, ``write_url`` sees a state equal to the URL's and does nothing.
 
 from __future__ import annotations
 
+import logging
+
 from dash import ALL, Input, Output, State, ctx, no_update
 from dash.exceptions import PreventUpdate
 
@@ -32,6 +34,7 @@ from webapp.ui.components import (
     variance_table,
 )
 
+log = logging.getLogger("ordinate")
 AUTO = "auto"
 NO_COLOUR_VALUE = "__none__"
 
@@ -104,7 +107,22 @@ def _register_show_view(app, services) -> None:
             view = vm.build_view(services, shown, notices + slide_notices)
         except vm.DatasetNotFound:
             return _not_found_outputs(notices, start_page=state.dataset is None)
+        except Exception:  # never a traceback in the page: log it, say what to do
+            log.exception("Drawing the view %s failed", search)
+            return _failure_outputs(notices)
         return _view_outputs(view)
+
+
+UNEXPECTED_FAILURE = (
+    "Ordinate could not draw this view because of a problem on the server. The link and the data are "
+    "unchanged; try another setting, reload the page, or tell the person who runs this server."
+)
+
+
+def _failure_outputs(notices) -> list:
+    outputs = [no_update] * len(_VIEW_OUTPUTS)
+    outputs[2] = notice_list(notices, (UNEXPECTED_FAILURE,))
+    return outputs
 
 
 def _not_found_outputs(notices, *, start_page: bool) -> list:

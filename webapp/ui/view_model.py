@@ -42,6 +42,7 @@ from webapp.state import MAX_SIGMA, MAX_SIGMA_LEVELS, NO_COLOUR, ViewState, pars
 HOVER_VARIABLES = 6
 # More arrows than this are unreadable on a biplot and slow to draw; the caption says so.
 MAX_BIPLOT_ARROWS = 20
+MAX_CIRCLE_ARROWS = 30
 MAX_TABLE_COMPONENTS = 20
 
 
@@ -389,7 +390,7 @@ def _circle(fitted, pc_x: int, pc_y: int, presentation: bool) -> go.Figure:
         variables=fitted.prepared.variables,
         correlations_x=correlations[:, pc_x - 1], correlations_y=correlations[:, pc_y - 1],
         x_title=axis_title(pc_x, float(ratios[pc_x - 1])), y_title=axis_title(pc_y, float(ratios[pc_y - 1])),
-        presentation=presentation,
+        presentation=presentation, max_arrows=MAX_CIRCLE_ARROWS,
     )
 
 
