@@ -204,9 +204,9 @@ def _colour_column(state: ViewState, table) -> str | None:
 
 def view_diagnostics(resolved, state: ViewState) -> Diagnostics:
     """T², Q and limits at the view's K (clamped to what the fit has) and confidence."""
-    fitted = resolved.fitted
-    components = "auto" if state.components is None else min(state.components, fitted.pca.n_components)
-    return diagnose(fitted, components, state.confidence)
+    from webapp.ui.view_model import components_choice
+
+    return diagnose(resolved.fitted, components_choice(state, resolved.fitted), state.confidence)
 
 
 def scores_frame(resolved, state: ViewState) -> pd.DataFrame:
@@ -362,28 +362,22 @@ def register_export_routes(server: flask.Flask, services) -> None:
     message; anything unexpected: 500 with a fixed sentence (the traceback
     goes to the log). Errors are plain text.
     """
-    from webapp.ui.view_model import DatasetNotFound
-
     def export(filename: str):
         if filename not in EXPORT_FILES:
             return _plain(404, _UNKNOWN_KIND_MESSAGE)
         state, _notices = parse_query(flask.request.query_string.decode("utf-8", "replace"))
         if state.dataset is None:
             return _plain(404, _NOT_FOUND_MESSAGE)
-        try:
-            if filename == "model.json":
-                text, name = export_model_json(services, state)
-                mimetype = "application/json"
-            else:
-                text, name = export_csv(services, state, filename.removesuffix(".csv"))
-                mimetype = "text/csv"
-        except DatasetNotFound:
-            return _plain(404, _NOT_FOUND_MESSAGE)
-        except OrdinateError as error:
-            return _plain(422, str(error))
-        except Exception:
-            log.exception("Export %s failed", filename)
-            return _plain(500, _SERVER_PROBLEM_MESSAGE)
+        if filename == "model.json":
+            produced = _guarded(lambda: export_model_json(services, state), f"Export {filename}")
+            mimetype = "application/json"
+        else:
+            produced = _guarded(lambda: export_csv(services, state, filename.removesuffix(".csv")),
+                                f"Export {filename}")
+            mimetype = "text/csv"
+        if isinstance(produced, flask.Response):
+            return produced
+        text, name = produced
         return _attachment(text, name, mimetype)
 
     def view_report(view_id: str):
@@ -392,15 +386,9 @@ def register_export_routes(server: flask.Flask, services) -> None:
         saved = services.store.view(view_id)
         if saved is None:
             return _plain(404, _NO_VIEW_MESSAGE)
-        try:
-            text = build_report_html(services, saved)
-        except DatasetNotFound:
-            return _plain(404, _NOT_FOUND_MESSAGE)
-        except OrdinateError as error:
-            return _plain(422, str(error))
-        except Exception:
-            log.exception("Report of view %s failed", view_id)
-            return _plain(500, _SERVER_PROBLEM_MESSAGE)
+        text = _guarded(lambda: build_report_html(services, saved), f"Report of view {view_id}")
+        if isinstance(text, flask.Response):
+            return text
         response = _attachment(text, report_filename(services, saved), "text/html")
         # Never rendered on this origin (it is a download), but if it ever were, no script runs here.
         response.headers["Content-Security-Policy"] = "sandbox"
@@ -409,6 +397,21 @@ def register_export_routes(server: flask.Flask, services) -> None:
     server.add_url_rule("/export/<filename>", endpoint="ordinate_export", view_func=export, methods=["GET"])
     server.add_url_rule("/v/<view_id>/report.html", endpoint="ordinate_view_report", view_func=view_report,
                         methods=["GET"])
+
+
+def _guarded(produce, what: str):
+    """Run ``produce``; map a missing dataset to 404, a user-facing error to 422, anything else to 500."""
+    from webapp.ui.view_model import DatasetNotFound
+
+    try:
+        return produce()
+    except DatasetNotFound:
+        return _plain(404, _NOT_FOUND_MESSAGE)
+    except OrdinateError as error:
+        return _plain(422, str(error))
+    except Exception:
+        log.exception("%s failed", what)
+        return _plain(500, _SERVER_PROBLEM_MESSAGE)
 
 
 def _secure(response: flask.Response) -> flask.Response:

@@ -72,15 +72,28 @@ def _kaiser_components(filled: np.ndarray, centring: str, scaling: str) -> int:
 
 def _centre_scale(values: np.ndarray, centring: str, scaling: str) -> tuple[np.ndarray, np.ndarray]:
     centre = values.mean(axis=0) if centring == "mean" else np.zeros(values.shape[1])
+    return centre, scale_divisors(values, scaling)[0]
+
+
+def scale_divisors(values: np.ndarray, scaling: str) -> tuple[np.ndarray, np.ndarray]:
+    """Per-variable divisors of a scaling, and the mask of variables with no variation.
+
+    unit: standard deviation (ddof = 1); pareto: its square root; range:
+    max − min; none: 1. Variables with no variation get divisor 1.
+    """
+    p = values.shape[1]
     if scaling == "none":
-        scale = np.ones(values.shape[1])
-    elif scaling == "range":
-        scale = np.ptp(values, axis=0)
+        return np.ones(p), np.zeros(p, dtype=bool)
+    spread = np.ptp(values, axis=0)
+    magnitude = np.max(np.abs(values), axis=0)
+    zero = spread <= 1e-12 * np.maximum(magnitude, np.finfo(float).tiny)
+    if scaling == "range":
+        scale = spread
     else:
         scale = values.std(axis=0, ddof=1)
         if scaling == "pareto":
             scale = np.sqrt(scale)
-    return centre, np.where(scale > 0, scale, 1.0)
+    return np.where(zero, 1.0, scale), zero
 
 
 def _rank_k_reconstruction(scaled: np.ndarray, k: int) -> np.ndarray:

@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 
 from webapp.analysis.errors import OrdinateError
-from webapp.analysis.impute import iterative_pca_impute
+from webapp.analysis.impute import iterative_pca_impute, scale_divisors
 
 TRANSFORMS = ("none", "log10", "ln", "log1p", "sqrt")
 MISSING_STRATEGIES = ("drop", "mean", "iterative")
@@ -195,7 +195,7 @@ def prepare(table, recipe: Recipe) -> PreparedData:
     )
     _require_shape(values.shape[0], len(variables), recipe)
     centre = values.mean(axis=0) if recipe.centring == "mean" else np.zeros(len(variables))
-    scale, zero = _scales(values, recipe.scaling)
+    scale, zero = scale_divisors(values, recipe.scaling)
     dropped_variables = tuple(v for v, z in zip(variables, zero) if z)
     if dropped_variables:
         warnings.append(
@@ -379,24 +379,6 @@ def _require_shape(n_samples: int, n_variables: int, recipe: Recipe) -> None:
         raise OrdinateError(
             f"PCA needs at least {MIN_VARIABLES} variables; only {n_variables} remain. Include more numeric columns."
         )
-
-
-def _scales(values: np.ndarray, scaling: str) -> tuple[np.ndarray, np.ndarray]:
-    """Per-variable divisors and the mask of zero-variance variables."""
-    p = values.shape[1]
-    if scaling == "none":
-        return np.ones(p), np.zeros(p, dtype=bool)
-    spread = np.ptp(values, axis=0)
-    magnitude = np.max(np.abs(values), axis=0)
-    zero = spread <= 1e-12 * np.maximum(magnitude, np.finfo(float).tiny)
-    if scaling == "range":
-        scale = spread
-    else:
-        scale = values.std(axis=0, ddof=1)
-        if scaling == "pareto":
-            scale = np.sqrt(scale)
-    scale = np.where(zero, 1.0, scale)
-    return scale, zero
 
 
 def _check_choice(what: str, value: str, choices: tuple[str, ...]) -> None:

@@ -162,7 +162,7 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
     k_max = pca.n_components
     pc_x, pc_y, loading_pc = (_clamp_pc(v, k_max, name, notices) for v, name in (
         (state.pc_x, "x axis"), (state.pc_y, "y axis"), (state.loading_pc, "loadings")))
-    components = _components_choice(state, fitted, notices)
+    components = components_choice(state, fitted, notices)
     diagnostics = diagnose(fitted, components, state.confidence)
     groups, colour_column = _groups(state, table, fitted)
     scores = _scores_panel(state, fitted, table, groups, pc_x, pc_y)
@@ -278,7 +278,9 @@ def _clamp_pc(value: int, available: int, where: str, notices: list) -> int:
     return available
 
 
-def _components_choice(state: ViewState, fitted, notices: list):
+def components_choice(state: ViewState, fitted, notices: list | None = None):
+    """K for the diagnostics: "auto", or the state's K clamped to the fit (with a notice)."""
+    notices = [] if notices is None else notices
     if state.components is None:
         return "auto"
     available = fitted.pca.n_components
