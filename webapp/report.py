@@ -158,7 +158,7 @@ def build_report_html(services, saved_view: SavedView) -> str:
     from webapp.ui.view_model import build_view, resolve
 
     state, notices = _state_of(saved_view)
-    view = build_view(services, state, notices)
+    view = build_view(services, state, notices, wait=True)
     record = services.store.dataset(saved_view.dataset_token)
     diagnostics = resolved = None
     if not view.errors:

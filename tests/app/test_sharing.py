@@ -64,9 +64,9 @@ def test_old_format_link_keeps_opening(app, services, iris_token):
     assert notices == ()
     assert "v=1" in location
     assert (state.scaling, state.pc_x, state.pc_y, state.sigma_levels) == ("range", 2, 3, (1.0, 2.0))
-    shown = vm.build_view(services, state)
+    shown = vm.build_view(services, state, wait=True)
     fresh = vm.build_view(services, ViewState(dataset=iris_token, scaling="range", pc_x=2, pc_y=3,
-                                              sigma_levels=(1.0, 2.0)))
+                                              sigma_levels=(1.0, 2.0)), wait=True)
     assert shown.variance_rows == fresh.variance_rows
     assert _figure_data(shown.scores_figure) == _figure_data(fresh.scores_figure)
     assert vm.saved_view_info(services, state)["outdated_engine"] is True
@@ -112,8 +112,8 @@ def test_presentation_without_saved_views_shows_current_view(services, iris_toke
 
 
 def test_presentation_enlarges_figures(services, iris_token):
-    normal = vm.build_view(services, ViewState(dataset=iris_token))
-    big = vm.build_view(services, ViewState(dataset=iris_token, present=True))
+    normal = vm.build_view(services, ViewState(dataset=iris_token), wait=True)
+    big = vm.build_view(services, ViewState(dataset=iris_token, present=True), wait=True)
     assert big.scores_figure.layout.font.size > normal.scores_figure.layout.font.size
 
 
@@ -133,11 +133,11 @@ def test_restart_keeps_views(tmp_path, iris_csv):
     token = services.store.add_bytes(iris_csv.read_bytes(), "iris.csv").token
     view = _save(services, token, "Kept", scaling="pareto")
     before = vm.build_view(services, parse_query(
-        first.server.test_client().get(f"/v/{view.view_id}").headers["Location"].split("?", 1)[1])[0])
+        first.server.test_client().get(f"/v/{view.view_id}").headers["Location"].split("?", 1)[1])[0], wait=True)
     del first, services
     second = create_app(AppConfig(data_dir=tmp_path / "d"))
     location = second.server.test_client().get(f"/v/{view.view_id}").headers["Location"]
-    after = vm.build_view(second.server.config["ordinate.services"], parse_query(location.split("?", 1)[1])[0])
+    after = vm.build_view(second.server.config["ordinate.services"], parse_query(location.split("?", 1)[1])[0], wait=True)
     assert after.variance_rows == before.variance_rows
     assert _figure_data(after.scores_figure) == _figure_data(before.scores_figure)
 

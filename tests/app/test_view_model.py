@@ -21,7 +21,7 @@ def _figure_array(figure, trace_index, axis):
 
 
 def test_iris_view_shows_published_eigenvalues(services, iris_token):
-    view = vm.build_view(services, ViewState(dataset=iris_token))
+    view = vm.build_view(services, ViewState(dataset=iris_token), wait=True)
     assert view.errors == ()
     assert [round(row["eigenvalue"], 4) for row in view.variance_rows] == [2.9185, 0.9140, 0.1468, 0.0207]
     assert [round(row["percent"], 2) for row in view.variance_rows] == [72.96, 22.85, 3.67, 0.52]
@@ -37,12 +37,12 @@ def test_iris_view_shows_published_eigenvalues(services, iris_token):
 
 
 def test_scaling_none_gives_covariance_pca(services, iris_token):
-    view = vm.build_view(services, ViewState(dataset=iris_token, scaling="none"))
+    view = vm.build_view(services, ViewState(dataset=iris_token, scaling="none"), wait=True)
     assert view.variance_rows[0]["percent"] == pytest.approx(92.46, abs=0.005)
 
 
 def test_sigma_ellipses_are_labelled_with_expected_coverage(services, iris_token):
-    view = vm.build_view(services, ViewState(dataset=iris_token, sigma_levels=(1.0, 3.0), ellipse_by="all"))
+    view = vm.build_view(services, ViewState(dataset=iris_token, sigma_levels=(1.0, 3.0), ellipse_by="all"), wait=True)
     names = [trace.name for trace in view.scores_figure.data if trace.name and "ellipse" in trace.name]
     # 1 - exp(-k²/2): 39.3 % for k = 1, 98.9 % for k = 3 (chi-square, 2 d.f.; any handbook).
     assert any("1σ" in n and "39.3 %" in n for n in names)
@@ -51,48 +51,48 @@ def test_sigma_ellipses_are_labelled_with_expected_coverage(services, iris_token
 
 def test_visual_changes_do_not_refit(services, iris_token):
     state = ViewState(dataset=iris_token)
-    vm.build_view(services, state)
-    assert services.compute.stats() == {"fits": 1, "parses": 1}
+    vm.build_view(services, state, wait=True)
+    assert services.compute.stats() == {"fits": 1, "parses": 1, "parallel": 1}
     for change in (dict(pc_x=2, pc_y=3), dict(sigma_levels=(1.0, 2.0, 3.0)), dict(colour_by=""),
                    dict(arrows=False), dict(labels=True), dict(biplot_scaling="distance"), dict(hotelling=True),
                    dict(components=3), dict(confidence=0.99), dict(picked="F010"), dict(loading_pc=2)):
-        vm.build_view(services, state.replace(**change))
-    assert services.compute.stats() == {"fits": 1, "parses": 1}
-    vm.build_view(services, state.replace(scaling="pareto"))
+        vm.build_view(services, state.replace(**change), wait=True)
+    assert services.compute.stats() == {"fits": 1, "parses": 1, "parallel": 1}
+    vm.build_view(services, state.replace(scaling="pareto"), wait=True)
     assert services.compute.stats()["fits"] == 2
 
 
 def test_identical_request_from_another_process_view_reuses_disk_cache(app, services, iris_token, tmp_path):
     from webapp.app import create_services
 
-    vm.build_view(services, ViewState(dataset=iris_token))
+    vm.build_view(services, ViewState(dataset=iris_token), wait=True)
     other = create_services(services.config)  # a second worker: same data dir, empty memory
-    vm.build_view(other, ViewState(dataset=iris_token))
-    assert other.compute.stats() == {"fits": 1, "parses": 1}
+    vm.build_view(other, ViewState(dataset=iris_token), wait=True)
+    assert other.compute.stats() == {"fits": 1, "parses": 1, "parallel": 1}
 
 
 def test_unknown_token_raises_not_found(services):
     with pytest.raises(vm.DatasetNotFound):
-        vm.build_view(services, ViewState(dataset="A" * 24))
+        vm.build_view(services, ViewState(dataset="A" * 24), wait=True)
 
 
 def test_recipe_error_is_shown_not_raised(services, iris_token):
     frame = iris_frame()
     frame.loc[5, "sepal width (cm)"] = -1.0
     token = services.store.add_bytes(frame.to_csv(index=False).encode(), "neg.csv").token
-    view = vm.build_view(services, ViewState(dataset=token, transforms=(("sepal width (cm)", "log10"),)))
+    view = vm.build_view(services, ViewState(dataset=token, transforms=(("sepal width (cm)", "log10"),)), wait=True)
     assert len(view.errors) == 1 and "sepal width (cm)" in view.errors[0] and "F005" in view.errors[0]
 
 
 def test_out_of_range_components_are_clamped_with_notice(services, iris_token):
-    view = vm.build_view(services, ViewState(dataset=iris_token, pc_x=7, components=9))
+    view = vm.build_view(services, ViewState(dataset=iris_token, pc_x=7, components=9), wait=True)
     assert view.pc_x == 4
     assert any("PC4 instead of PC7" in n for n in view.notices)
     assert any("K = 9" in n for n in view.notices)
 
 
 def test_picked_sample_shows_contributions(services, iris_token):
-    view = vm.build_view(services, ViewState(dataset=iris_token, picked="F041", components=2))
+    view = vm.build_view(services, ViewState(dataset=iris_token, picked="F041", components=2), wait=True)
     assert view.contributions is not None
     text = str(view.contributions)
     assert "F041" in text
@@ -100,7 +100,7 @@ def test_picked_sample_shows_contributions(services, iris_token):
 
 def test_exclusions_and_variable_choices_reach_the_fit(services, iris_token):
     state = ViewState(dataset=iris_token, excluded=("F000", "F001"), variables_off=("sepal width (cm)",))
-    view = vm.build_view(services, state)
+    view = vm.build_view(services, state, wait=True)
     assert view.provenance["Samples used"] == "148 of 150"
     assert "sepal width" not in view.provenance["Variables used"]
     assert view.controls.variables_in == ["sepal length (cm)", "petal length (cm)", "petal width (cm)"]
@@ -108,7 +108,7 @@ def test_exclusions_and_variable_choices_reach_the_fit(services, iris_token):
 
 def test_controls_round_trip_through_the_url(services, iris_token):
     state = ViewState(dataset=iris_token, scaling="pareto", sigma_levels=(1.0, 2.5), hotelling=True, colour_by="")
-    view = vm.build_view(services, state)
+    view = vm.build_view(services, state, wait=True)
     controls = dict(id_column="auto", colour="__none__", variables_in=view.controls.variables_in,
                     missing=state.missing, centring=state.centring, scaling=state.scaling, pc_x=1, pc_y=2,
                     sigma="1, 2.5", ellipse_by="group", overlays=["arrows", "hotelling"], biplot="correlation",
@@ -171,7 +171,7 @@ def test_wide_data_with_more_variables_than_samples(services):
     frame.insert(0, "sample", [f"P{i}" for i in range(40)])
     frame.insert(1, "arm", ["A", "B"] * 20)
     token = services.store.add_bytes(frame.to_csv(index=False).encode(), "omics.csv").token
-    view = vm.build_view(services, ViewState(dataset=token))
+    view = vm.build_view(services, ViewState(dataset=token), wait=True)
     assert view.errors == () and view.provenance["Solver"] == "gram"
     assert len(view.variance_rows) == 20 and all(row["kaiser"] for row in view.variance_rows)
     assert sum(1 for a in view.scores_figure.layout.annotations if a.showarrow) == vm.MAX_BIPLOT_ARROWS

@@ -54,6 +54,12 @@ def _open_with_iris(dash_duo, app, iris_csv):
     dash_duo.wait_for_element("#scores-graph .js-plotly-plot", timeout=TIMEOUT)
     _upload(dash_duo, iris_csv)
     dash_duo.wait_for_text_to_equal(FIRST_EIGENVALUE, "2.9185", timeout=TIMEOUT)
+    _wait_for_parallel_analysis(dash_duo.driver)
+
+
+def _wait_for_parallel_analysis(driver):
+    """A view is first drawn from the PCA alone; wait for the parallel-analysis verdicts."""
+    _wait_for(lambda: (lambda advice: advice and "still running" not in advice)(_text(driver, "#component-advice")))
 
 
 def _legend_text(dash_duo) -> str:
@@ -106,6 +112,7 @@ def test_link_reopens_identical_view_in_a_fresh_browser(dash_duo, app, iris_csv)
     _open_with_iris(dash_duo, app, iris_csv)
     dash_duo.find_element("#scaling input[value='pareto']").click()
     _wait_for(lambda: "scale=pareto" in dash_duo.driver.current_url)
+    _wait_for_parallel_analysis(dash_duo.driver)
     table = _wait_for(lambda: dash_duo.find_element(FIRST_EIGENVALUE).text != "2.9185"
                       and dash_duo.find_element("#variance-table-element").text)
     link = dash_duo.find_element("#link-text").get_attribute("value")

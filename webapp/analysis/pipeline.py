@@ -3,7 +3,10 @@
 The work splits in two so a cache can keep the expensive part:
 
 * :func:`fit_recipe` depends only on the data and the recipe (preprocessing,
-  eigendecomposition, component advice);
+  eigendecomposition, component advice). It can stop short of parallel
+  analysis (``parallel=False``), which repeats the eigendecomposition for every
+  permutation and so costs many fits on large tables; :func:`with_parallel_analysis`
+  adds it later to the same fit, so a dashboard can show the PCA first;
 * :func:`diagnose` adds what depends on the number of components K and the
   confidence level (T², Q and their limits); it is cheap.
 
@@ -13,7 +16,7 @@ The work splits in two so a cache can keep the expensive part:
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -72,20 +75,39 @@ class Analysis:
         return self.fitted.warnings
 
 
-def fit_recipe(table, recipe: Recipe, *, seed: int = 0) -> FittedRecipe:
+def fit_recipe(table, recipe: Recipe, *, seed: int = 0, parallel: bool = True) -> FittedRecipe:
+    """Preprocess, fit the PCA and advise on K.
+
+    With ``parallel=False`` the advice leaves parallel analysis out
+    (``advice.parallel is None``) and recommends by the broken-stick model;
+    :func:`with_parallel_analysis` completes it. Both routes give the same
+    result as ``parallel=True``.
+    """
     prepared = prepare(table, recipe)
     pca = fit_pca(prepared.matrix)
-    n, p = prepared.matrix.shape
+    advice = advise_components(pca.eigenvalues, pca.total_variance, prepared.matrix.shape[1])
+    fitted = FittedRecipe(recipe, prepared, pca, advice)
+    return with_parallel_analysis(fitted, seed=seed) if parallel else fitted
+
+
+def parallel_advice(fitted: FittedRecipe, *, seed: int = 0) -> ComponentAdvice:
+    """The component advice of a fit, parallel analysis included.
+
+    Should parallel analysis refuse these data, the advice stands on the other
+    rules (``parallel`` stays None and the text says "not run").
+    """
+    pca, X = fitted.pca, fitted.prepared.matrix
+    n, p = X.shape
     permutations = int(np.clip(PERMUTATION_BUDGET_CELLS / (n * p), 20, 100))
-    advice = advise_components(
-        pca.eigenvalues,
-        pca.total_variance,
-        p,
-        X=prepared.matrix,
-        n_permutations=permutations,
-        seed=seed,
-    )
-    return FittedRecipe(recipe, prepared, pca, advice)
+    try:
+        return advise_components(pca.eigenvalues, pca.total_variance, p, X=X, n_permutations=permutations, seed=seed)
+    except OrdinateError:
+        return fitted.advice
+
+
+def with_parallel_analysis(fitted: FittedRecipe, *, seed: int = 0, advice: ComponentAdvice | None = None) -> FittedRecipe:
+    """The same fit with parallel analysis in its advice (``advice`` when already computed)."""
+    return replace(fitted, advice=parallel_advice(fitted, seed=seed) if advice is None else advice)
 
 
 def resolve_components(fitted: FittedRecipe, components: int | str | None) -> int:

@@ -200,7 +200,8 @@ def diagnostics_figure(
             name=f"Beyond a {level} limit ({count_text(index.size)})", legend_group="flagged",
             style=GroupStyle(colour=TEXT_COLOUR, symbol="circle-open"),
             marker_size=style.marker_size * 2.0, hover_lines=hover_lines, show_text=False,
-            text_size=style.label_size, webgl=webgl,
+            # In the density view these are the only points: WebGL only if they are many.
+            text_size=style.label_size, webgl=webgl if present else index.size > WEBGL_THRESHOLD,
             outline=dict(width=style.line_width + 0.6, color=TEXT_COLOUR),
         ))
     if highlighted is not None:

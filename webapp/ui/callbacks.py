@@ -12,10 +12,13 @@ the controls, ``write_url`` sees a state equal to the URL's and does nothing.
 
 from __future__ import annotations
 
+import hashlib
 import logging
+import time
 
 from dash import ALL, Input, Output, State, ctx, no_update
 from dash.exceptions import PreventUpdate
+from plotly.io.json import to_json_plotly
 
 from webapp.state import NO_COLOUR, ViewState, parse_query, to_query
 from webapp.ui import layout as L
@@ -50,8 +53,14 @@ def register_callbacks(app, services) -> None:
 
 
 # --- URL -> everything shown ---------------------------------------------------------
+#
+# Drawn in two steps so the first screen appears sooner: ``show_view`` sets the
+# controls, the scores plot and the variance table; its answer starts
+# ``show_view_rest`` for the panels further down. Both send only the panels that
+# differ from what the page already shows (fingerprints kept in the page), because
+# the browser's work per panel, not the server's, dominates a redraw.
 
-_VIEW_OUTPUTS = [
+_FIRST_OUTPUTS = [
     Output(L.DATASET_TITLE, "children"),
     Output(L.DATASET_SUMMARY, "children"),
     Output(L.NOTICES, "children"),
@@ -86,9 +95,11 @@ _VIEW_OUTPUTS = [
     Output(L.LOADING_PC, "value"),
     Output(L.SCORES_GRAPH, "figure"),
     Output(L.VARIANCE_TABLE, "children"),
-    Output(L.VARIANCE_GRAPH, "figure"),
     Output(L.COMPONENT_ADVICE, "children"),
     Output(L.COPY_TABLE, "content"),
+]
+_REST_OUTPUTS = [
+    Output(L.VARIANCE_GRAPH, "figure"),
     Output(L.DIAGNOSTICS_GRAPH, "figure"),
     Output(L.FLAGGED_LIST, "children"),
     Output(L.CONTRIBUTIONS, "children"),
@@ -96,21 +107,93 @@ _VIEW_OUTPUTS = [
     Output(L.CIRCLE_GRAPH, "figure"),
     Output(L.PROVENANCE, "children"),
 ]
+_VIEW_OUTPUTS = _FIRST_OUTPUTS + _REST_OUTPUTS
+# Also written by other callbacks, so what the page shows may differ from what was sent last.
+_ALWAYS_SENT = frozenset({(L.NOTICES, "children")})
+_FIGURE_KEYS = {L.SCORES_GRAPH: "scores", L.VARIANCE_GRAPH: "variance", L.DIAGNOSTICS_GRAPH: "diagnostics",
+                L.LOADINGS_GRAPH: "loadings", L.CIRCLE_GRAPH: "circle"}
 
 
 def _register_show_view(app, services) -> None:
-    @app.callback(_VIEW_OUTPUTS, Input(L.URL, "search"))
-    def show_view(search):
-        state, notices = parse_query(search)
-        shown, _slides, slide_notices = vm.effective_state(services, state)
+    @app.callback(_FIRST_OUTPUTS + [Output(L.SHOWN_FIRST, "data"), Output(L.PARALLEL_POLL, "disabled")],
+                  Input(L.URL, "search"), Input(L.PARALLEL_DONE, "data"), State(L.SHOWN_FIRST, "data"))
+    def show_view(search, _parallel_done, shown):
+        outputs, fingerprints, complete = _draw(services, search, first=True)
+        sent, shown = _only_changed(_FIRST_OUTPUTS, outputs, fingerprints, shown)
+        # A new value every time, so the rest of the view always follows.
+        return sent + [{**shown, "#search": search, "#drawn": time.time()}, complete]
+
+    @app.callback(_REST_OUTPUTS + [Output(L.SHOWN_REST, "data")],
+                  Input(L.SHOWN_FIRST, "data"), State(L.URL, "search"), State(L.SHOWN_REST, "data"),
+                  prevent_initial_call=True)
+    def show_view_rest(_first, search, shown):
+        outputs, fingerprints, _complete = _draw(services, search, first=False)
+        sent, shown = _only_changed(_REST_OUTPUTS, outputs, fingerprints, shown)
+        return sent + [shown]
+
+    @app.callback(Output(L.PARALLEL_DONE, "data"), Output(L.PARALLEL_POLL, "disabled", allow_duplicate=True),
+                  Input(L.PARALLEL_POLL, "n_intervals"), State(L.URL, "search"), prevent_initial_call=True)
+    def wait_for_parallel_analysis(ticks, search):
+        state, _ = parse_query(search)
+        shown, _slides, _notices = vm.effective_state(services, state)
         try:
-            view = vm.build_view(services, shown, notices + slide_notices)
-        except vm.DatasetNotFound:
-            return _not_found_outputs(notices, start_page=state.dataset is None)
-        except Exception:  # never a traceback in the page: log it, say what to do
-            log.exception("Drawing the view %s failed", search)
-            return _failure_outputs(notices)
-        return _view_outputs(view)
+            done = vm.parallel_analysis_done(services, shown)
+        except Exception:  # the view itself reports problems; stop asking
+            log.exception("Checking parallel analysis for %s failed", search)
+            return no_update, True
+        return ({"search": search, "tick": ticks}, True) if done else (no_update, no_update)
+
+
+def _draw(services, search, *, first: bool) -> tuple[list, list, bool]:
+    """The first or the rest of the view's outputs at ``search``, their fingerprints, and whether it is complete.
+
+    A fingerprint of None means the value is always sent (unless ``no_update``).
+    """
+    specs = _FIRST_OUTPUTS if first else _REST_OUTPUTS
+    state, notices = parse_query(search)
+    shown, _slides, slide_notices = vm.effective_state(services, state)
+    try:
+        view = vm.build_view(services, shown, notices + slide_notices)
+        outputs = _first_outputs(view) if first else _rest_outputs(view)
+    except vm.DatasetNotFound:
+        outputs = _not_found_outputs(notices, start_page=state.dataset is None)
+        return _part(outputs, first), [None] * len(specs), True
+    except Exception:  # never a traceback in the page: log it, say what to do
+        log.exception("Drawing the view %s failed", search)
+        return _part(_failure_outputs(notices), first), [None] * len(specs), True
+    fingerprints = [_fingerprint(spec, value, view.figure_keys) for spec, value in zip(specs, outputs)]
+    return outputs, fingerprints, view.complete
+
+
+def _part(outputs: list, first: bool) -> list:
+    return outputs[:len(_FIRST_OUTPUTS)] if first else outputs[len(_FIRST_OUTPUTS):]
+
+
+def _fingerprint(spec, value, figure_keys: dict) -> str:
+    figure_key = figure_keys.get(_FIGURE_KEYS.get(spec.component_id))
+    text = repr(figure_key) if figure_key is not None else to_json_plotly(value)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()[:24]
+
+
+def _only_changed(specs, values, fingerprints, shown) -> tuple[list, dict]:
+    """``values`` with ``no_update`` where the page already shows the same thing; the new fingerprints."""
+    shown = {k: v for k, v in (shown or {}).items() if not k.startswith("#")}
+    sent = []
+    for spec, value, fingerprint in zip(specs, values, fingerprints):
+        name = f"{spec.component_id}.{spec.component_property}"
+        if value is no_update:
+            sent.append(no_update)
+            continue
+        if fingerprint is not None and shown.get(name) == fingerprint \
+                and (spec.component_id, spec.component_property) not in _ALWAYS_SENT:
+            sent.append(no_update)
+            continue
+        sent.append(value)
+        if fingerprint is None:
+            shown.pop(name, None)
+        else:
+            shown[name] = fingerprint
+    return sent, shown
 
 
 UNEXPECTED_FAILURE = (
@@ -135,7 +218,7 @@ def _not_found_outputs(notices, *, start_page: bool) -> list:
     return outputs
 
 
-def _view_outputs(view: "vm.View") -> list:
+def _first_outputs(view: "vm.View") -> list:
     s, controls = view.state, view.controls
     colour_value = AUTO if s.colour_by is None else (NO_COLOUR_VALUE if s.colour_by == NO_COLOUR else s.colour_by)
     overlays = [name for name, on in (("arrows", s.arrows), ("hotelling", s.hotelling), ("labels", s.labels)) if on]
@@ -174,9 +257,14 @@ def _view_outputs(view: "vm.View") -> list:
         view.loading_pc,
         view.scores_figure,
         variance_table(view.variance_rows),
-        view.variance_figure,
         view.advice_text,
         view.variance_tsv,
+    ]
+
+
+def _rest_outputs(view: "vm.View") -> list:
+    return [
+        view.variance_figure,
         view.diagnostics_figure,
         flagged_table(view.flagged),
         view.contributions,

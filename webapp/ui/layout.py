@@ -14,6 +14,14 @@ from webapp.state import BIPLOT_SCALINGS, CENTRINGS, MISSING_POLICIES, SCALINGS,
 
 URL = "url"
 UPLOAD_RESULT = "upload-result"
+# While parallel analysis runs after a view was drawn, the page asks every half second
+# whether it has finished, then redraws what depends on the recommended K.
+PARALLEL_POLL = "parallel-poll"
+PARALLEL_DONE = "parallel-done"
+PARALLEL_POLL_MS = 500
+# Fingerprints of what the page shows, so a redraw sends only the panels that changed.
+SHOWN_FIRST = "shown-first"
+SHOWN_REST = "shown-rest"
 MANAGE_LINKS = "manage-links"
 MANAGE_BOX = "manage-box"
 NOTICES = "notices"
@@ -110,6 +118,10 @@ def build_layout(config) -> html.Div:
         children=[
             dcc.Location(id=URL, refresh=False),
             dcc.Store(id=UPLOAD_RESULT),
+            dcc.Interval(id=PARALLEL_POLL, interval=PARALLEL_POLL_MS, disabled=True),
+            dcc.Store(id=PARALLEL_DONE),
+            dcc.Store(id=SHOWN_FIRST),
+            dcc.Store(id=SHOWN_REST),
             dcc.Store(id=ORIGIN_VIEW, storage_type="session"),
             # Manage links of datasets uploaded from this browser: kept locally, never in the URL.
             dcc.Store(id=MANAGE_LINKS, storage_type="local"),

@@ -9,6 +9,7 @@ unpack the result, so this module is where the app's behaviour is tested.
 from __future__ import annotations
 
 import re
+import threading
 import time
 from dataclasses import dataclass, field
 
@@ -72,17 +73,39 @@ class View:
     pc_x: int = 1
     pc_y: int = 2
     loading_pc: int = 1
-    scores_figure: go.Figure = field(default_factory=go.Figure)
     variance_rows: list = field(default_factory=list)
-    variance_figure: go.Figure = field(default_factory=go.Figure)
     variance_tsv: str = ""
     advice_text: str = ""
-    diagnostics_figure: go.Figure = field(default_factory=go.Figure)
-    flagged: list = field(default_factory=list)
-    contributions: object = None
-    loadings_figure: go.Figure = field(default_factory=go.Figure)
-    circle_figure: go.Figure = field(default_factory=go.Figure)
     provenance: dict = field(default_factory=dict)
+    complete: bool = True  # False: drawn before parallel analysis finished; ask again
+    figure_keys: dict = field(default_factory=dict)  # panel name -> what it depends on (see _panel_keys)
+    # Panels are built on first use, so a callback that sends some of them builds only those.
+    panels: "LazyPanels" = field(default_factory=lambda: LazyPanels({}))
+
+    scores_figure = property(lambda self: self.panels.get("scores", go.Figure))
+    variance_figure = property(lambda self: self.panels.get("variance", go.Figure))
+    diagnostics_figure = property(lambda self: self.panels.get("diagnostics", go.Figure))
+    flagged = property(lambda self: self.panels.get("flagged", list))
+    contributions = property(lambda self: self.panels.get("contributions", lambda: None))
+    loadings_figure = property(lambda self: self.panels.get("loadings", go.Figure))
+    circle_figure = property(lambda self: self.panels.get("circle", go.Figure))
+
+
+class LazyPanels:
+    """Named values built once, on first use, from zero-argument builders."""
+
+    def __init__(self, builders: dict):
+        self._builders = dict(builders)
+        self._values: dict = {}
+        self._lock = threading.Lock()
+
+    def get(self, name: str, default_factory):
+        if name not in self._builders:
+            return default_factory()
+        with self._lock:
+            if name not in self._values:
+                self._values[name] = self._builders[name]()
+            return self._values[name]
 
 
 @dataclass(frozen=True, eq=False)
@@ -94,18 +117,44 @@ class Resolved:
     recipe: Recipe
     fitted: object
     notices: tuple[str, ...]
+    complete: bool = True  # False while parallel analysis is still running
 
 
 def resolve(services, state: ViewState) -> Resolved:
+    """The complete analysis a state points at (waits for parallel analysis)."""
     record = services.store.dataset(state.dataset)
     if record is None:
         raise DatasetNotFound(state.dataset)
-    return _resolve_table(services, record, services.compute.table(record), state)
+    return _resolve_table(services, record, services.compute.table(record), state, wait=True)
 
 
-def _resolve_table(services, record, table, state: ViewState) -> Resolved:
+def _resolve_table(services, record, table, state: ViewState, *, wait: bool) -> Resolved:
     recipe, notices = recipe_for(state, table)
-    return Resolved(record, table, recipe, services.compute.fitted(record, recipe), notices)
+    if wait:
+        return Resolved(record, table, recipe, services.compute.fitted(record, recipe), notices)
+    fitted, complete = services.compute.first_fit(record, recipe)
+    return Resolved(record, table, recipe, fitted, notices, complete)
+
+
+def parallel_analysis_done(services, state: ViewState) -> bool:
+    """Whether the view of ``state`` can now be drawn complete.
+
+    When it cannot, parallel analysis is (re)started in this process: the
+    worker that began it may have been restarted meanwhile. True as well when
+    there is nothing to wait for (an unknown dataset, a file or recipe that
+    cannot be used): the view itself says what is wrong.
+    """
+    record = services.store.dataset(state.dataset)
+    if record is None:
+        return True
+    try:
+        recipe, _ = recipe_for(state, services.compute.table(record))
+    except OrdinateError:
+        return True
+    if services.compute.is_complete(record, recipe):
+        return True
+    services.compute.fit_in_background(record, recipe)
+    return False
 
 
 def recipe_for(state: ViewState, table) -> tuple[Recipe, tuple[str, ...]]:
@@ -138,7 +187,14 @@ def recipe_for(state: ViewState, table) -> tuple[Recipe, tuple[str, ...]]:
     return recipe, tuple(notices)
 
 
-def build_view(services, state: ViewState, parse_notices=()) -> View:
+def build_view(services, state: ViewState, parse_notices=(), *, wait: bool = False) -> View:
+    """Everything the page shows for ``state``.
+
+    Unless ``wait``, the view is drawn as soon as the PCA is fitted: while
+    parallel analysis is still running, ``view.complete`` is False, K follows
+    the broken-stick model and the advice says the recommendation may change
+    (see :func:`parallel_analysis_done`).
+    """
     record = services.store.dataset(state.dataset)
     if record is None:
         raise DatasetNotFound(state.dataset)
@@ -148,7 +204,8 @@ def build_view(services, state: ViewState, parse_notices=()) -> View:
         return _failed_view(state, record, None, parse_notices, error)
     summary = table_summary(record, table)
     try:
-        resolved = _resolve_table(services, record, table, state)
+        # Drawn at once from the PCA; parallel analysis may still be running.
+        resolved = _resolve_table(services, record, table, state, wait=wait)
     except OrdinateError as error:
         return _failed_view(state, record, table, parse_notices, error, summary)
     return _full_view(services, state, resolved, summary, tuple(parse_notices))
@@ -156,7 +213,6 @@ def build_view(services, state: ViewState, parse_notices=()) -> View:
 
 def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, parse_notices) -> View:
     fitted, table = resolved.fitted, resolved.table
-    fit = fit_key(resolved.record.content_hash, resolved.recipe)
     pca = fitted.pca
     notices = list(parse_notices) + list(table.warnings) + list(resolved.notices) + list(fitted.warnings)
     k_max = pca.n_components
@@ -165,12 +221,13 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
     components = components_choice(state, fitted, notices)
     diagnostics = diagnose(fitted, components, state.confidence)
     groups, colour_column = _groups(state, table, fitted)
-    scores = _scores_panel(state, fitted, table, groups, pc_x, pc_y)
+    keys = _panel_keys(state, resolved, diagnostics, colour_column, pc_x, pc_y, loading_pc)
     rows = variance_table_rows(
         pca.eigenvalues[:MAX_TABLE_COMPONENTS], pca.explained_variance_ratio[:MAX_TABLE_COMPONENTS],
         pca.cumulative_explained[:MAX_TABLE_COMPONENTS], kaiser=fitted.advice.kaiser,
         broken_stick=fitted.advice.broken_stick, parallel=fitted.advice.parallel, components=diagnostics.components,
     )
+    draw = services.compute.drawing
     return View(
         state=state,
         title=resolved.record.display_name,
@@ -182,38 +239,58 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
         pc_x=pc_x,
         pc_y=pc_y,
         loading_pc=loading_pc,
-        scores_figure=scores,
         variance_rows=rows,
-        variance_figure=services.compute.drawing(("variance", fit, diagnostics.components, state.present),
-                                                 lambda: variance_figure(
-            eigenvalues=pca.eigenvalues, explained_ratio=pca.explained_variance_ratio,
-            cumulative=pca.cumulative_explained, broken_stick=fitted.advice.broken_stick_expectation,
-            parallel_threshold=fitted.advice.parallel_threshold, mean_eigenvalue=pca.total_variance / pca.n_variables,
-            components=diagnostics.components, total_variance=pca.total_variance, presentation=state.present,
-        )),
         variance_tsv=variance_table_tsv(rows),
-        advice_text=advice_text(fitted.advice, diagnostics.components, state.components is None),
-        diagnostics_figure=services.compute.drawing(
-            ("diagnostics", fit, diagnostics.components, diagnostics.confidence, state.picked, colour_column,
-             state.present),
-            lambda: diagnostics_figure(
+        advice_text=advice_text(fitted.advice, diagnostics.components, state.components is None,
+                                pending=not resolved.complete),
+        panels=LazyPanels({
+            "scores": lambda: draw(keys["scores"], lambda: _scores_panel(state, fitted, table, groups, pc_x, pc_y)),
+            "variance": lambda: draw(keys["variance"], lambda: variance_figure(
+                eigenvalues=pca.eigenvalues, explained_ratio=pca.explained_variance_ratio,
+                cumulative=pca.cumulative_explained, broken_stick=fitted.advice.broken_stick_expectation,
+                parallel_threshold=fitted.advice.parallel_threshold,
+                mean_eigenvalue=pca.total_variance / pca.n_variables, components=diagnostics.components,
+                total_variance=pca.total_variance, presentation=state.present,
+            )),
+            "diagnostics": lambda: draw(keys["diagnostics"], lambda: diagnostics_figure(
                 t2=diagnostics.t2, q=diagnostics.q, labels=np.asarray(fitted.prepared.sample_labels, dtype=object),
                 groups=groups, t2_limit=diagnostics.t2_limit, q_limit=diagnostics.q_limit,
                 confidence=diagnostics.confidence, highlighted=state.picked, presentation=state.present,
             )),
-        flagged=services.compute.drawing(
-            ("flagged", fit, diagnostics.components, diagnostics.confidence),
-            lambda: flagged_samples(fitted.prepared.sample_labels, diagnostics.t2, diagnostics.q,
-                                    diagnostics.t2_limit, diagnostics.q_limit)),
-        contributions=_contributions(state, fitted, diagnostics),
-        loadings_figure=services.compute.drawing(("loadings", fit, loading_pc, state.present), lambda: loadings_bar_figure(
-            variables=fitted.prepared.variables, loadings=pca.loadings[:, loading_pc - 1], component=loading_pc,
-            explained_ratio=float(pca.explained_variance_ratio[loading_pc - 1]), presentation=state.present,
-        )),
-        circle_figure=services.compute.drawing(("circle", fit, pc_x, pc_y, state.present),
-                                               lambda: _circle(fitted, pc_x, pc_y, state.present)),
+            "flagged": lambda: draw(keys["flagged"], lambda: flagged_samples(
+                fitted.prepared.sample_labels, diagnostics.t2, diagnostics.q, diagnostics.t2_limit,
+                diagnostics.q_limit)),
+            "contributions": lambda: _contributions(state, fitted, diagnostics),
+            "loadings": lambda: draw(keys["loadings"], lambda: loadings_bar_figure(
+                variables=fitted.prepared.variables, loadings=pca.loadings[:, loading_pc - 1], component=loading_pc,
+                explained_ratio=float(pca.explained_variance_ratio[loading_pc - 1]), presentation=state.present,
+            )),
+            "circle": lambda: draw(keys["circle"], lambda: _circle(fitted, pc_x, pc_y, state.present)),
+        }),
         provenance=provenance(resolved, diagnostics, colour_column),
+        complete=resolved.complete,
+        figure_keys=keys,
     )
+
+
+def _panel_keys(state: ViewState, resolved: Resolved, diagnostics, colour_column, pc_x, pc_y, loading_pc) -> dict:
+    """What each drawn panel depends on, beginning with the fit.
+
+    Equal keys mean equal panels: the compute layer keeps recently drawn panels
+    by key, and the page skips sending a panel whose key it already shows.
+    """
+    fit = (fit_key(resolved.record.content_hash, resolved.recipe), resolved.complete)
+    k, confidence = diagnostics.components, diagnostics.confidence
+    return {
+        "scores": ("scores", fit[0], pc_x, pc_y, state.sigma_levels, state.ellipse_by, state.arrows,
+                   state.biplot_scaling, state.labels, state.picked, colour_column, state.present,
+                   state.hotelling and confidence),
+        "variance": ("variance", fit, k, state.present),
+        "diagnostics": ("diagnostics", fit[0], k, confidence, state.picked, colour_column, state.present),
+        "flagged": ("flagged", fit[0], k, confidence),
+        "loadings": ("loadings", fit[0], loading_pc, state.present),
+        "circle": ("circle", fit[0], pc_x, pc_y, state.present),
+    }
 
 
 def _failed_view(state, record, table, notices, error, summary=None) -> View:
@@ -409,15 +486,19 @@ def variable_correlations(fitted) -> np.ndarray:
     return pca.loadings * np.sqrt(pca.eigenvalues[:k]) / spread[:, None]
 
 
-def advice_text(advice, components: int, automatic: bool) -> str:
-    parallel = "not run" if advice.parallel is None else str(advice.parallel)
+def advice_text(advice, components: int, automatic: bool, *, pending: bool = False) -> str:
+    """The recommendation in words; ``pending`` while parallel analysis is still running."""
+    parallel = ("still running" if pending else "not run") if advice.parallel is None else str(advice.parallel)
     chosen = "the recommendation" if automatic else "your choice"
-    return (
+    text = (
         f"Recommended K = {advice.recommended} by {advice.rule}. Other rules: Kaiser {advice.kaiser}, "
         f"broken stick {advice.broken_stick}, parallel analysis {parallel}, "
         f"{advice.cumulative_threshold:.0%} cumulative {advice.cumulative}. "
         f"T² and Q use K = {components} ({chosen})."
     )
+    if pending and automatic:
+        text += " The recommendation will follow parallel analysis when it finishes, in a moment."
+    return text
 
 
 def provenance(resolved: Resolved, diagnostics, colour_column) -> dict:
