@@ -9,8 +9,9 @@ process (and by background jobs):
 * the component advice with parallel analysis, under the same key with its own
   prefix. Parallel analysis repeats the eigendecomposition for every
   permutation (about a second for 55 000 x 50), so a new view is drawn from
-  the PCA alone while it runs in the background (:meth:`ComputeLayer.first_fit`);
-  the page then asks again (:meth:`ComputeLayer.is_complete`).
+  the PCA alone (:meth:`ComputeLayer.first_fit`), parallel analysis runs in
+  the background once the view is on screen, and the page asks again
+  (:meth:`ComputeLayer.is_complete`).
 
 Everything that only changes what is drawn (axes, sigma levels, colours,
 labels, arrows) and everything derived cheaply from a fit (T², Q and their
@@ -70,32 +71,33 @@ class ComputeLayer:
         key = f"table/{ENGINE_VERSION}/{record.content_hash}"
         return self._cached(key, lambda: read_table(self.store.blob_path(record), filename=record.filename), "parses")
 
-    def fit_in_background(self, record: DatasetRecord, recipe: Recipe) -> threading.Thread:
-        """Start the complete fit now, unless this process is already running it.
+    def fit_in_background(self, record: DatasetRecord, recipe: Recipe, *, parallel: bool = True) -> threading.Thread:
+        """Start fitting now, unless this process is already at it; returns the thread doing the work.
 
-        Used when an upload is parsed (the browser is still on its way to the
-        new view) and when a view was drawn before parallel analysis finished.
-        Returns the thread doing the work.
+        ``parallel=False`` stops at the PCA (:meth:`pca_fit`): an upload starts
+        that while the browser is still on its way to the new view. The complete
+        fit (parallel analysis) is started once the view is on screen, so that it
+        does not compete with drawing the view for the server's cores.
         """
-        key = advice_key(record.content_hash, recipe)
+        key = advice_key(record.content_hash, recipe) if parallel else fit_key(record.content_hash, recipe)
         with self._memo_lock:
             running = self._completing.get(key)
             if running is not None and running.is_alive():
                 return running
             if key in self._failed:
                 return threading.Thread()  # not started: the failure was logged when it happened
-            thread = threading.Thread(target=self._quiet_fit, args=(record, recipe, key), daemon=True)
+            thread = threading.Thread(target=self._quiet_fit, args=(record, recipe, key, parallel), daemon=True)
             self._completing[key] = thread
         thread.start()
         return thread
 
-    def _quiet_fit(self, record, recipe, key) -> None:
+    def _quiet_fit(self, record, recipe, key, parallel) -> None:
         try:
-            self.fitted(record, recipe)
+            self.fitted(record, recipe) if parallel else self.pca_fit(record, recipe)
         except Exception:
-            # A request that needs the complete fit reports the error itself; a view
-            # drawn from the PCA alone stops waiting (first_fit reports it complete).
-            log.exception("The complete fit of dataset %s failed", record.token)
+            # A request that needs the fit reports the error itself; a view drawn
+            # from the PCA alone stops waiting (first_fit reports it complete).
+            log.exception("Fitting dataset %s in the background failed", record.token)
             with self._memo_lock:
                 self._failed.add(key)
         finally:
@@ -117,18 +119,17 @@ class ComputeLayer:
         """The complete fit when it is ready, else the PCA-only fit at once.
 
         Returns ``(fit, complete)``. When ``complete`` is False, parallel
-        analysis has been started in the background; :meth:`is_complete`
-        tells when asking again gives the complete fit.
+        analysis is still to come: start it with :meth:`fit_in_background`;
+        :meth:`is_complete` tells when asking again gives the complete fit.
+        A complete fit that failed in this process counts as complete, so a
+        page does not wait for it forever.
         """
         pca_fit = self.pca_fit(record, recipe)
-        advice = self._peek(advice_key(record.content_hash, recipe))
+        key = advice_key(record.content_hash, recipe)
+        advice = self._peek(key)
         if advice is not None:
             return with_parallel_analysis(pca_fit, advice=advice), True
-        key = advice_key(record.content_hash, recipe)
-        if key in self._failed:
-            return pca_fit, True
-        self.fit_in_background(record, recipe)
-        return pca_fit, False
+        return pca_fit, key in self._failed
 
     def is_complete(self, record: DatasetRecord, recipe: Recipe) -> bool:
         """Whether parallel analysis is done (in any process), or failed in this one."""
@@ -186,19 +187,43 @@ class ComputeLayer:
         if value is None:
             # One computation per key across threads and worker processes: the
             # others wait for it (the lock expires if its holder dies).
-            with diskcache.Lock(self.cache, f"lock/{key}", expire=LOCK_SECONDS):
+            lock = diskcache.Lock(self.cache, f"lock/{key}", expire=LOCK_SECONDS)
+            lock.acquire()
+            try:
                 value = self.cache.get(key)
                 if value is None:
                     # Errors (OrdinateError) propagate and are not cached: the user may
                     # fix the recipe, and a transient failure must not stick.
                     value = compute()
-                    self.cache.set(key, value)
                     self.cache.incr(f"stats/{counter}")
+                    self._remember(key, value)
+                    # Writing a large result to disk takes a tenth of a second or more:
+                    # the caller goes on with it meanwhile, and the lock, released after
+                    # the write, keeps other processes waiting for it instead of refitting.
+                    threading.Thread(target=self._write_and_release, args=(key, value, lock)).start()
+                    lock = None
+                    return value
+            finally:
+                if lock is not None:
+                    lock.release()
+        self._remember(key, value)
+        return value
+
+    def _remember(self, key: str, value) -> None:
         with self._memo_lock:
             self._memo[key] = value
+            self._memo.move_to_end(key)
             while len(self._memo) > MEMO_ENTRIES:
                 self._memo.popitem(last=False)
-        return value
+
+    def _write_and_release(self, key: str, value, lock: diskcache.Lock) -> None:
+        # Not a daemon thread: a worker that is shutting down finishes the write first.
+        try:
+            self.cache.set(key, value)
+        except Exception:  # e.g. a full disk: other processes will compute it again
+            log.exception("Could not store %s in the result cache", key)
+        finally:
+            lock.release()
 
 
 def fit_key(content_hash: str, recipe: Recipe) -> str:

@@ -16,7 +16,7 @@ from sklearn.decomposition import PCA
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.ingest import read_table
 from webapp.analysis.model_io import load_model, model_from_analysis, project_table, save_model
-from webapp.analysis.pipeline import analyse, analysis_report, diagnose, fit_recipe
+from webapp.analysis.pipeline import analyse, analysis_report, diagnose, fit_recipe, with_parallel_analysis
 from webapp.analysis.recipe import Recipe
 
 
@@ -116,3 +116,20 @@ def test_model_loader_refuses_other_files(tmp_path):
     path.write_text("not json")
     with pytest.raises(OrdinateError, match="not valid JSON"):
         load_model(path)
+
+
+def test_fit_without_parallel_analysis_then_completed_equals_the_whole_fit(iris_table):
+    # The dashboard shows the PCA first and adds parallel analysis later; both routes
+    # must end in the same advice. Iris (autoscaled): Horn's parallel analysis keeps
+    # one component (eigenvalue 2.92 against thresholds near 1), and so does the
+    # broken-stick model: PC1's 73.0 % is above its expected 52.1 %, PC2's 22.9 % below
+    # its expected 27.1 % (b_k = (1/p) sum_{i>=k} 1/i with p = 4; Jackson 1993).
+    whole = fit_recipe(iris_table, Recipe())
+    first = fit_recipe(iris_table, Recipe(), parallel=False)
+    assert first.advice.parallel is None and first.advice.parallel_threshold is None
+    assert first.advice.rule == "broken-stick model" and first.advice.recommended == 1
+    completed = with_parallel_analysis(first)
+    assert completed.pca is first.pca and completed.prepared is first.prepared  # no refit
+    assert completed.advice.parallel == whole.advice.parallel == 1
+    np.testing.assert_array_equal(completed.advice.parallel_threshold, whole.advice.parallel_threshold)
+    assert completed.advice.rule == whole.advice.rule

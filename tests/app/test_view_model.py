@@ -5,6 +5,8 @@ Numbers are checked against Fisher's iris as shipped with scikit-learn
 share 92.46 %, widely published, quoted from memory) and scikit-learn's PCA.
 """
 
+import time
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -186,3 +188,67 @@ def test_unexpected_failure_is_a_message_not_a_traceback(monkeypatch):
 
     outputs = callbacks._failure_outputs(())
     assert callbacks.UNEXPECTED_FAILURE in str(outputs[2]) and "Traceback" not in str(outputs)
+
+
+def test_first_view_comes_before_parallel_analysis_and_completes_without_refit(services, iris_token):
+    state = ViewState(dataset=iris_token, scaling="pareto")
+    first = vm.build_view(services, state)
+    assert not first.complete
+    assert "parallel analysis still running" in first.advice_text
+    assert all(row["parallel"] is None for row in first.variance_rows)
+    assert not vm.parallel_analysis_done(services, state)  # starts it in the background
+    deadline = time.time() + 60
+    while not vm.parallel_analysis_done(services, state) and time.time() < deadline:
+        time.sleep(0.05)
+    complete = vm.build_view(services, state)
+    assert complete.complete and "still running" not in complete.advice_text
+    assert complete.variance_rows[0]["parallel"] is True
+    assert services.compute.stats() == {"fits": 1, "parses": 1, "parallel": 1}
+    # The same numbers as a view that waited for everything.
+    waited = vm.build_view(services, state, wait=True)
+    assert waited.variance_rows == complete.variance_rows and waited.advice_text == complete.advice_text
+
+
+def test_a_failed_parallel_analysis_does_not_leave_the_page_waiting(services, iris_token, monkeypatch):
+    import webapp.compute
+
+    def broken(_fitted):
+        raise MemoryError("simulated")
+
+    monkeypatch.setattr(webapp.compute, "parallel_advice", broken)
+    state = ViewState(dataset=iris_token, scaling="range")
+    assert not vm.build_view(services, state).complete
+    vm.parallel_analysis_done(services, state)
+    deadline = time.time() + 30
+    while not vm.parallel_analysis_done(services, state) and time.time() < deadline:
+        time.sleep(0.05)
+    view = vm.build_view(services, state)
+    assert view.complete and "parallel analysis not run" in view.advice_text
+
+
+def test_a_redraw_sends_only_the_panels_that_changed(services, iris_token):
+    from dash import no_update
+
+    from webapp.ui import callbacks as cb
+
+    def send(state, shown, first):
+        outputs, fingerprints, _ = cb._draw(services, "?" + to_query(state), first=first)
+        specs = cb._FIRST_OUTPUTS if first else cb._REST_OUTPUTS
+        return cb._only_changed(specs, outputs, fingerprints, shown)
+
+    def sent_ids(values, first):
+        specs = cb._FIRST_OUTPUTS if first else cb._REST_OUTPUTS
+        return {f"{s.component_id}.{s.component_property}" for s, v in zip(specs, values) if v is not no_update}
+
+    state = ViewState(dataset=iris_token)
+    vm.build_view(services, state, wait=True)
+    first, shown_first = send(state, None, True)
+    rest, shown_rest = send(state, None, False)
+    assert no_update not in first + rest  # a new page gets everything
+    again, _ = send(state, shown_first, True)
+    assert sent_ids(again, True) == {"notices.children"}  # also written by the upload callback
+    changed, _ = send(state.replace(sigma_levels=(1.0, 3.0)), shown_first, True)
+    assert sent_ids(changed, True) == {"notices.children", "sigma-levels.value", "scores-graph.figure"}
+    rest_after_k, _ = send(state.replace(components=3), shown_rest, False)
+    assert sent_ids(rest_after_k, False) == {"variance-graph.figure", "diagnostics-graph.figure",
+                                             "flagged-list.children", "provenance.children"}

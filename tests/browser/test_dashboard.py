@@ -24,6 +24,7 @@ pytestmark = pytest.mark.browser
 
 FIRST_EIGENVALUE = "#variance-table-element tbody tr:nth-child(1) td:nth-child(2)"
 FIRST_PERCENT = "#variance-table-element tbody tr:nth-child(1) td:nth-child(3)"
+PARALLEL_VERDICT = "#variance-table-element tbody tr:nth-child({row}) td:nth-child(7)"
 TIMEOUT = 40
 
 FIGURE_DATA_JS = """
@@ -79,6 +80,11 @@ def _wait_for(condition, timeout=TIMEOUT):
 def test_upload_shows_variance_table_and_scaling_change_and_back(dash_duo, app, iris_csv):
     _open_with_iris(dash_duo, app, iris_csv)
     dash_duo.wait_for_text_to_equal(FIRST_PERCENT, "72.96", timeout=TIMEOUT)
+    # Parallel analysis arrives after the first drawing and keeps one component
+    # (autoscaled iris: eigenvalue 2.92, then 0.91 below its permutation threshold).
+    dash_duo.wait_for_text_to_equal(PARALLEL_VERDICT.format(row=1), "✓", timeout=TIMEOUT)
+    assert dash_duo.find_element(PARALLEL_VERDICT.format(row=2)).text == ""
+    assert "Recommended K = 1 by parallel analysis" in dash_duo.find_element("#component-advice").text
     assert "iris.csv" in dash_duo.find_element("#dataset-title").text
     download = _wait_for(lambda: dash_duo.find_element("#download-table").get_attribute("href"))
     assert "/export/variance.csv?v=1&ds=" in download

@@ -127,21 +127,30 @@ def _register_show_view(app, services) -> None:
                   Input(L.SHOWN_FIRST, "data"), State(L.URL, "search"), State(L.SHOWN_REST, "data"),
                   prevent_initial_call=True)
     def show_view_rest(_first, search, shown):
-        outputs, fingerprints, _complete = _draw(services, search, first=False)
+        outputs, fingerprints, complete = _draw(services, search, first=False)
         sent, shown = _only_changed(_REST_OUTPUTS, outputs, fingerprints, shown)
+        if not complete:
+            # The whole view is drawn: now parallel analysis may have the cores.
+            _parallel_analysis_done(services, search)
         return sent + [shown]
 
     @app.callback(Output(L.PARALLEL_DONE, "data"), Output(L.PARALLEL_POLL, "disabled", allow_duplicate=True),
                   Input(L.PARALLEL_POLL, "n_intervals"), State(L.URL, "search"), prevent_initial_call=True)
     def wait_for_parallel_analysis(ticks, search):
-        state, _ = parse_query(search)
-        shown, _slides, _notices = vm.effective_state(services, state)
-        try:
-            done = vm.parallel_analysis_done(services, shown)
-        except Exception:  # the view itself reports problems; stop asking
-            log.exception("Checking parallel analysis for %s failed", search)
-            return no_update, True
-        return ({"search": search, "tick": ticks}, True) if done else (no_update, no_update)
+        if _parallel_analysis_done(services, search):
+            return {"search": search, "tick": ticks}, True
+        return no_update, no_update
+
+
+def _parallel_analysis_done(services, search) -> bool:
+    """Whether the view at ``search`` can be drawn complete; starts parallel analysis if not."""
+    state, _ = parse_query(search)
+    shown, _slides, _notices = vm.effective_state(services, state)
+    try:
+        return vm.parallel_analysis_done(services, shown)
+    except Exception:  # the view itself reports problems; stop asking
+        log.exception("Checking parallel analysis for %s failed", search)
+        return True
 
 
 def _draw(services, search, *, first: bool) -> tuple[list, list, bool]:

@@ -139,8 +139,9 @@ def _resolve_table(services, record, table, state: ViewState, *, wait: bool) -> 
 def parallel_analysis_done(services, state: ViewState) -> bool:
     """Whether the view of ``state`` can now be drawn complete.
 
-    When it cannot, parallel analysis is (re)started in this process: the
-    worker that began it may have been restarted meanwhile. True as well when
+    When it cannot, parallel analysis is started in this process unless it is
+    running here already (the worker that began it may have been restarted
+    meanwhile; across processes one fit per key still holds). True as well when
     there is nothing to wait for (an unknown dataset, a file or recipe that
     cannot be used): the view itself says what is wrong.
     """
