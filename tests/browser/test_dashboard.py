@@ -103,8 +103,20 @@ def test_upload_shows_variance_table_and_scaling_change_and_back(dash_duo, app, 
     assert dash_duo.get_logs() == [] or all("favicon" in entry["message"] for entry in dash_duo.get_logs())
 
 
+COUNT_REDRAWS_JS = """
+window.__redraws = {};
+for (const plot of document.querySelectorAll('.js-plotly-plot')) {
+  const id = plot.closest('[id]').id;
+  window.__redraws[id] = 0;
+  plot.on('plotly_afterplot', () => { window.__redraws[id] += 1; });
+}
+"""
+
+
 def test_sigma_levels_draw_labelled_ellipses(dash_duo, app, iris_csv):
     _open_with_iris(dash_duo, app, iris_csv)
+    time.sleep(1)  # let the last panels settle before counting redraws
+    dash_duo.driver.execute_script(COUNT_REDRAWS_JS)
     sigma = dash_duo.find_element("#sigma-levels")
     sigma.send_keys(Keys.CONTROL, "a")
     sigma.send_keys("1, 3", Keys.ENTER)
@@ -112,6 +124,12 @@ def test_sigma_levels_draw_labelled_ellipses(dash_duo, app, iris_csv):
     assert "1σ ellipse · expected 39.3 %" in legend
     assert "3σ ellipse · expected 98.9 %" in legend
     assert "sigma=1,3" in dash_duo.driver.current_url
+    # Only the scores plot depends on the sigma levels, so only it is sent and drawn again.
+    time.sleep(1)
+    redraws = dash_duo.driver.execute_script("return window.__redraws;")
+    assert redraws["scores-graph"] >= 1
+    assert {graph: count for graph, count in redraws.items() if graph != "scores-graph"} == {
+        "variance-graph": 0, "diagnostics-graph": 0, "loadings-graph": 0, "circle-graph": 0}
 
 
 def test_link_reopens_identical_view_in_a_fresh_browser(dash_duo, app, iris_csv):
