@@ -14,6 +14,7 @@ import time
 import numpy as np
 import pandas as pd
 import plotly.io
+from dash._utils import to_json
 import pytest
 from selenium import webdriver
 from selenium.webdriver.common.by import By
@@ -23,7 +24,8 @@ from tests.bench.test_engine_bench import _median_seconds, _record
 from tests.conftest import pytest_setup_options
 from webapp.app import create_app
 from webapp.config import AppConfig
-from webapp.state import ViewState
+from webapp.state import ViewState, to_query
+from webapp.ui import callbacks
 from webapp.ui import view_model as vm
 
 
@@ -42,6 +44,17 @@ def _serialised_view(view) -> int:
     return sum(len(plotly.io.to_json(figure, validate=False)) for figure in figures)
 
 
+def _redraw_seconds(services, state, shown) -> tuple[float, dict]:
+    """Server time of both view callbacks for ``state``: build, compare with what is shown, serialise what is sent."""
+    begin = time.perf_counter()
+    for first in (True, False):
+        specs = callbacks._FIRST_OUTPUTS if first else callbacks._REST_OUTPUTS
+        outputs, fingerprints, _ = callbacks._draw(services, "?" + to_query(state), first=first)
+        sent, shown[first] = callbacks._only_changed(specs, outputs, fingerprints, shown.get(first))
+        to_json(sent)
+    return time.perf_counter() - begin, shown
+
+
 def test_visual_change_at_100k_samples_costs_no_refit(tmp_path):
     app = create_app(AppConfig(data_dir=tmp_path / "d", demo_dataset=None))
     services = app.server.config["ordinate.services"]
@@ -52,18 +65,20 @@ def test_visual_change_at_100k_samples_costs_no_refit(tmp_path):
     start = time.perf_counter()
     services.compute.fitted(record, vm.recipe_for(state, services.compute.table(record))[0])
     fit_seconds = time.perf_counter() - start
-    vm.build_view(services, state)
+    _, shown = _redraw_seconds(services, state, {})
     changes = [dict(pc_y=3), dict(sigma_levels=(1.0, 2.0, 3.0)), dict(colour_by=""), dict(hotelling=True),
                dict(biplot_scaling="distance")]
-    redraw = []
+    redraw, all_panels = [], []
     for change in changes:
-        begin = time.perf_counter()
+        seconds, shown = _redraw_seconds(services, state.replace(**change), shown)
+        redraw.append(seconds)
+        begin = time.perf_counter()  # for comparison: every panel rebuilt and serialised
         _serialised_view(vm.build_view(services, state.replace(**change)))
-        redraw.append(time.perf_counter() - begin)
+        all_panels.append(time.perf_counter() - begin)
     assert services.compute.stats()["fits"] == 1
     median = float(np.median(redraw))
     _record("redraw at 100000 samples", fit_s=fit_seconds, redraw_median_s=median, ratio=median / fit_seconds,
-            target=0.1, met=median <= 0.1 * fit_seconds)
+            all_panels_median_s=float(np.median(all_panels)), target=0.1, met=median <= 0.1 * fit_seconds)
 
 
 def _decoded_size(array_json) -> tuple[str, int]:
