@@ -82,6 +82,9 @@ def _shot(browser, url, name, size, *, element=None, full_page=False):
     browser.set_window_size(*size)
     browser.get(url)
     WebDriverWait(browser, 60).until(EC.presence_of_element_located((By.CSS_SELECTOR, "#scores-graph .main-svg, .not-found-card")))
+    # A view is drawn before parallel analysis ends; wait for its verdicts.
+    WebDriverWait(browser, 60).until(lambda b: b.find_elements(By.CSS_SELECTOR, ".not-found-card") or "still running"
+                                     not in b.find_element(By.ID, "component-advice").text)
     time.sleep(2.5)  # let every graph finish drawing
     if element:
         target = browser.find_element(By.CSS_SELECTOR, element)

@@ -7,7 +7,13 @@ from selenium import webdriver
 from selenium.webdriver.common.by import By
 from werkzeug.serving import make_server
 
-from tests.browser.test_dashboard import FIRST_EIGENVALUE, _headless_options, _text, _wait_for
+from tests.browser.test_dashboard import (
+    FIRST_EIGENVALUE,
+    _headless_options,
+    _text,
+    _wait_for,
+    _wait_for_parallel_analysis,
+)
 from webapp.app import create_app
 from webapp.config import AppConfig
 
@@ -38,6 +44,9 @@ def test_sign_in_then_an_ended_session_returns_to_the_same_view(served):
     assert "/sign-in" in driver.current_url
     _sign_in(driver)
     _wait_for(lambda: _text(driver, FIRST_EIGENVALUE))
+    # Until then the page polls for parallel analysis, and a poll would find the
+    # session ended before the click below does.
+    _wait_for_parallel_analysis(driver)
     view_url = driver.current_url
     assert "ds=" in view_url
 
