@@ -33,7 +33,10 @@
  *            render it EMPTY and never give it children from a callback: this
  *            script owns its text.
  *   dcc.Store(id="upload-result")
- *            receives {data: {token, summary, at}} or {data: {error, at}}.
+ *            receives {data: {token, summary, purpose, at}} or {data: {error, at}}.
+ *   <button id="batch-button">   optional: opens the same file chooser, and the
+ *            file is published with purpose "batch" (a new batch to score
+ *            against the open view's model) instead of "analysis".
  *
  * Classes this script sets (style them in CSS):
  *   #upload-zone.is-dragging    a file is being dragged over the zone
@@ -53,6 +56,7 @@
     var PROGRESS_ID = "upload-progress";
     var STATUS_ID = "upload-status";
     var RESULT_ID = "upload-result";
+    var BATCH_BUTTON_ID = "batch-button";
     var DEFAULT_URL = "/api/upload";
     var BYTES_PER_MB = 1024 * 1024;
     var NOTE_MS = 6000;
@@ -62,6 +66,7 @@
         "overflow:hidden;clip:rect(0,0,0,0);white-space:nowrap;border:0;opacity:0;";
 
     var busy = false;
+    var nextPurpose = "analysis"; // set by whichever control opened the file chooser
     var dragDepth = 0;
     var statusText = "";
     var note = "";
@@ -231,7 +236,7 @@
 
     // --- the upload ---------------------------------------------------------
 
-    function start(file, zone) {
+    function start(file, zone, purpose) {
         if (busy) {
             showNote("Another file was ignored: please wait until this upload has finished.");
             return;
@@ -248,10 +253,10 @@
             fail(tooLargeMessage(file.size, limit)); // checked here so nothing is sent
             return;
         }
-        send(file, zone);
+        send(file, zone, purpose || "analysis");
     }
 
-    function send(file, zone) {
+    function send(file, zone, purpose) {
         var xhr = new XMLHttpRequest();
         var totalMb = formatMb(file.size);
         setBusy(zone, true);
@@ -262,6 +267,7 @@
         xhr.setRequestHeader("Content-Type", "application/octet-stream");
         xhr.setRequestHeader("X-Requested-With", "ordinate-upload");
         xhr.setRequestHeader("X-Filename", encodeURIComponent(file.name));
+        xhr.setRequestHeader("X-Ordinate-Purpose", purpose);
 
         xhr.upload.onprogress = function (event) {
             var total = event.lengthComputable ? event.total : file.size;
@@ -286,7 +292,7 @@
             }
             if (xhr.status === 200 && body && typeof body.token === "string") {
                 hideProgress();
-                var published = publish({ token: body.token, summary: body.summary || {} });
+                var published = publish({ token: body.token, summary: body.summary || {}, purpose: purpose });
                 if (published) {
                     showStatus("Received “" + file.name + "” (" + formatSize(file.size) + ").", false);
                 } else {
@@ -344,14 +350,28 @@
         }
         var file = firstFile(input.files);
         input.value = ""; // so choosing the same file again fires "change" again
-        start(file, zoneOf(input) || byId(ZONE_ID));
+        start(file, zoneOf(input) || byId(ZONE_ID), nextPurpose);
     });
 
+    function openChooser(purpose) {
+        nextPurpose = purpose;
+        var input = byId(INPUT_ID);
+        if (input) {
+            input.click();
+        }
+    }
+
     document.addEventListener("click", function (event) {
+        var batchButton = event.target && event.target.closest ? event.target.closest("#" + BATCH_BUTTON_ID) : null;
+        if (batchButton) {
+            openChooser("batch");
+            return;
+        }
         var zone = zoneOf(event.target);
         if (!zone || event.target.id === INPUT_ID) {
             return;
         }
+        nextPurpose = "analysis";
         // A <label> opens its own file input; a div with role=button needs help.
         if (zone.tagName !== "LABEL") {
             var input = byId(INPUT_ID);
@@ -367,10 +387,7 @@
             return;
         }
         event.preventDefault(); // Space would scroll the page
-        var input = byId(INPUT_ID);
-        if (input) {
-            input.click();
-        }
+        openChooser("analysis");
     });
 
     document.addEventListener("dragenter", function (event) {
@@ -421,7 +438,7 @@
         }
         var files = event.dataTransfer.files;
         var wasBusy = busy;
-        start(firstFile(files), zone);
+        start(firstFile(files), zone, "analysis");
         if (!wasBusy && busy && files.length > 1) {
             showNote("Only one file is added at a time; “" + files[0].name + "” was used.");
         }

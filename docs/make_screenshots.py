@@ -55,6 +55,10 @@ def main() -> None:
         picked = demo.replace(picked="OD-24-0106")
         _shot(browser, base + to_query(picked), "diagnostics-picked.png", (1280, 800), element=".diagnostics-card")
         _shot(browser, base + to_query(demo), "variance.png", (1280, 800), element=".variance-card")
+        new_batches = ROOT / "demo_data" / "synthetic_oat_dessert_new_batches.csv"
+        batch = services.store.add_bytes(new_batches.read_bytes(), new_batches.name).token
+        _shot(browser, base + to_query(demo.replace(batch=batch)), "new-batch.png", (1280, 1400),
+              element=".diagnostics-card")
         _shot(browser, base + "v=1&ds=AAAAAAAAAAAAAAAAAAAAAAAA", "not-found.png", (1280, 800))
         first = vm.save_view(services, demo, title="Sites on PC1 and PC2",
                              note="**Ostrava-Nord** separates along PC1; Lindholm and Brackwater overlap.",
@@ -88,8 +92,8 @@ def _shot(browser, url, name, size, *, element=None, full_page=False):
     time.sleep(2.5)  # let every graph finish drawing
     if element:
         target = browser.find_element(By.CSS_SELECTOR, element)
-        browser.execute_script("arguments[0].scrollIntoView({block: 'start'});", target)
-        time.sleep(0.5)
+        browser.execute_script("arguments[0].scrollIntoView({block: 'start'}); window.scrollBy(0, -90);", target)
+        time.sleep(0.5)  # the page's bar stays at the top: the card starts below it
         target.screenshot(str(OUT / name))
     elif full_page:
         height = browser.execute_script("return document.documentElement.scrollHeight")

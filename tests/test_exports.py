@@ -298,7 +298,8 @@ def _url(file: str, state: ViewState) -> str:
 
 @pytest.mark.parametrize("file", EXPORT_FILES)
 def test_each_download_is_an_attachment_that_is_never_cached_or_sniffed(client, tricky, file):
-    response = client.get(_url(file, ViewState(dataset=tricky.token)))
+    batch = tricky.token if file == "batch.csv" else None  # a view scoring a batch (here the data itself)
+    response = client.get(_url(file, ViewState(dataset=tricky.token, batch=batch)))
     assert response.status_code == 200
     stem, extension = file.rsplit(".", 1)
     assert response.headers["Content-Disposition"] == f'attachment; filename="tricky-iris-{stem}.{extension}"'
@@ -310,6 +311,30 @@ def test_each_download_is_an_attachment_that_is_never_cached_or_sniffed(client, 
         assert response.data.startswith(b"\xef\xbb\xbf")  # UTF-8 byte-order mark for Excel
     else:
         assert json.loads(response.data)["schema"] == "ordinate-pca-model"
+
+
+def test_batch_export_scores_new_samples_like_the_model_file_and_escapes_labels(services, tricky, tmp_path):
+    # The reference data scored as a "new batch": the same scores as the model's own
+    # samples (and as scikit-learn), T² with the limit for new samples (Tracy, Young &
+    # Mason 1992: k(n-1)(n+1)/(n(n-k)) F(1-alpha; k, n-k), computed with scipy).
+    state = ViewState(dataset=tricky.token, components=2, batch=tricky.token)
+    text, filename = export_csv(services, state, "batch")
+    assert filename == "tricky-iris-batch.csv"
+    rows = read_csv_text(text)
+    assert rows[0] == ["Sample", "PC1", "PC2", "T²", "Q", "T² limit (new samples)", "Q limit", "Above T² limit",
+                       "Above Q limit", "K", "Confidence"]
+    assert rows[1][0] == "'" + TRICKY_LABELS[0]  # formula-like labels are escaped
+    scores = np.array([[float(r[1]), float(r[2])] for r in rows[1:]])
+    fitted = resolve(services, state).fitted
+    np.testing.assert_allclose(scores, fitted.pca.scores[:, :2], atol=1e-9)
+    n, k = 150, 2
+    limit = k * (n - 1) * (n + 1) / (n * (n - k)) * stats.f.ppf(0.95, k, n - k)
+    assert float(rows[1][5]) == pytest.approx(limit, rel=1e-9)
+
+
+def test_batch_export_without_a_batch_is_a_plain_message(client, tricky):
+    response = client.get(_url("batch.csv", ViewState(dataset=tricky.token)))
+    assert response.status_code == 422 and b"scores no new batch" in response.data
 
 
 def test_route_csv_is_the_same_as_the_function(client, services, tricky):

@@ -93,6 +93,7 @@ valid_states = st.builds(
     labels=st.booleans(),
     loading_pc=pcs,
     picked=st.none() | labels,
+    batch=st.none() | tokens,
     saved_view=st.none() | tokens,
     present=st.booleans(),
     slide=st.integers(min_value=1, max_value=state_module.MAX_SLIDE),
@@ -191,7 +192,7 @@ def test_default_query_spells_out_every_setting():
     assert to_query(ViewState()) == (
         "v=1&ds=&off=&ex=&tf=&missing=drop&centre=mean&scale=unit&id=auto&k=auto&conf=0.95"
         "&x=1&y=2&sigma=2&ellipse=group&t2ellipse=0&colour=auto&arrows=1&biplot=correlation"
-        "&labels=0&lpc=1&pick=&view=&present=0&slide=1"
+        "&labels=0&lpc=1&pick=&batch=&view=&present=0&slide=1"
     )
 
 
@@ -442,6 +443,7 @@ ALTERNATIVE_VALUES = {
     "labels": True,
     "loading_pc": 2,
     "picked": "B-009",
+    "batch": "Nb7xT0c9LrV2aZk8",
     "saved_view": "Vw3xT0c9LrV2aZk8Qp",
     "present": True,
     "slide": 4,

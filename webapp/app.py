@@ -88,9 +88,11 @@ def _inspect_upload(services: Services, record) -> dict:
     receives it, and only its holder can rename or delete the dataset.
     """
     table = services.compute.table(record)
-    # The browser opens the default view next: have its PCA under way already.
-    recipe, _ = recipe_for(ViewState(dataset=record.token), table)
-    services.compute.fit_in_background(record, recipe, parallel=False)
+    if request.headers.get("X-Ordinate-Purpose") != "batch":
+        # The browser opens the default view next: have its PCA under way already.
+        # (A new batch is scored against the open view's model instead.)
+        recipe, _ = recipe_for(ViewState(dataset=record.token), table)
+        services.compute.fit_in_background(record, recipe, parallel=False)
     return {**table_summary(record, table), "manage": manage_link(record)}
 
 

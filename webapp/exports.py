@@ -70,7 +70,7 @@ log = logging.getLogger(__name__)
 
 MAX_EXPORT_COMPONENTS = 100  # columns of scores and loadings; ViewState.MAX_PC is the same bound
 MAX_VARIANCE_ROWS = 1000  # as many eigenvalues as `ordinate analyze --json` reports
-CSV_KINDS: tuple[str, ...] = ("scores", "loadings", "variance", "diagnostics")
+CSV_KINDS: tuple[str, ...] = ("scores", "loadings", "variance", "diagnostics", "batch")
 #: The file names served under ``/export/``.
 EXPORT_FILES: tuple[str, ...] = (*(f"{kind}.csv" for kind in CSV_KINDS), "model.json")
 
@@ -298,11 +298,43 @@ def diagnostics_frame(resolved, state: ViewState) -> pd.DataFrame:
     })
 
 
+def batch_frame(services, resolved, state: ViewState) -> pd.DataFrame:
+    """The view's new batch scored against its model: scores on the K components, T², Q, limits for new samples.
+
+    The T² limit is the form for new samples (Tracy, Young & Mason 1992), wider
+    than the one for the model's own samples; see docs/methods.md.
+    """
+    from webapp.ui.view_model import score_batch
+
+    record = services.store.dataset(state.batch) if state.batch else None
+    if record is None:
+        raise OrdinateError("This view scores no new batch, or the batch is no longer stored.")
+    batch, notices = score_batch(services, record, resolved.fitted, view_diagnostics(resolved, state))
+    if batch is None:
+        raise OrdinateError(notices[0])
+    p, n = batch.projection, len(batch.labels)
+    columns: dict[str, Any] = {"Sample": pd.Series(list(p.sample_labels), dtype=object)}
+    for a, name in enumerate(_pc_names(p.scores.shape[1])):
+        columns[name] = np.asarray(p.scores[:, a], dtype=np.float64)
+    columns.update({
+        "T²": np.asarray(p.t2, dtype=np.float64),
+        "Q": np.asarray(p.q, dtype=np.float64),
+        "T² limit (new samples)": np.full(n, float(p.t2_limit)),
+        "Q limit": np.full(n, float(p.q_limit)),
+        "Above T² limit": ["yes" if v > p.t2_limit else "no" for v in p.t2],
+        "Above Q limit": ["yes" if v > p.q_limit else "no" for v in p.q],
+        "K": np.full(n, int(p.scores.shape[1]), dtype=np.int64),
+        "Confidence": np.full(n, float(state.confidence)),
+    })
+    return pd.DataFrame(columns)
+
+
 _BUILDERS = {
     "scores": scores_frame,
     "loadings": loadings_frame,
     "variance": variance_frame,
     "diagnostics": diagnostics_frame,
+    "batch": None,  # needs the store as well: see export_csv
 }
 
 
@@ -327,7 +359,7 @@ def export_csv(services, state: ViewState, kind: str) -> tuple[str, str]:
     if kind not in _BUILDERS:
         raise ValueError(f"unknown export kind {kind!r}")
     resolved = _resolve(services, state)
-    frame = _BUILDERS[kind](resolved, state)
+    frame = batch_frame(services, resolved, state) if kind == "batch" else _BUILDERS[kind](resolved, state)
     return to_safe_csv(frame), safe_filename(_dataset_stem(resolved.record.filename), f"-{kind}.csv")
 
 

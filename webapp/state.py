@@ -251,16 +251,18 @@ class ViewState:
     labels: bool = False
     loading_pc: int = 1
     picked: str | None = None
+    batch: str | None = None  # dataset code of a new batch scored against this view's model
     saved_view: str | None = None
     present: bool = False
     slide: int = 1
 
     def __post_init__(self) -> None:
-        dataset = self.dataset
-        if dataset is not None and not (isinstance(dataset, str) and _TOKEN_PATTERN.fullmatch(dataset)):
-            raise ViewStateError(
-                f"dataset must be None or a link code of 16 to 64 letters, digits, '-' or '_'; got {dataset!r}."
-            )
+        for name in ("dataset", "batch"):
+            code = getattr(self, name)
+            if code is not None and not (isinstance(code, str) and _TOKEN_PATTERN.fullmatch(code)):
+                raise ViewStateError(
+                    f"{name} must be None or a link code of 16 to 64 letters, digits, '-' or '_'; got {code!r}."
+                )
         colour_by = self.colour_by
         if colour_by is not None and colour_by != NO_COLOUR:
             colour_by = _check_text(colour_by, "colour_by")
@@ -512,6 +514,7 @@ PARAMETERS: tuple[UrlParameter, ...] = (
     UrlParameter("labels", "labels", "drawing", _read_flag, _write_flag),
     UrlParameter("lpc", "loading_pc", "drawing", _read_whole(1, MAX_PC), str),
     UrlParameter("pick", "picked", "drawing", _read_optional_label, _write_optional),
+    UrlParameter("batch", "batch", "drawing", _read_token, _write_optional),
     UrlParameter("view", "saved_view", "drawing", _read_token, _write_optional),
     UrlParameter("present", "present", "drawing", _read_flag, _write_flag),
     UrlParameter("slide", "slide", "drawing", _read_whole(1, MAX_SLIDE), str),

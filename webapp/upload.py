@@ -17,6 +17,8 @@ Request::
     Content-Type: application/octet-stream
     X-Requested-With: ordinate-upload     (required; see below)
     X-Filename: <percent-encoded original file name>   (display only)
+    X-Ordinate-Purpose: analysis | batch                (optional; a batch is scored
+                                                         against the open view's model)
     <raw file bytes>
 
 Answers (all JSON, all ``Cache-Control: no-store``):

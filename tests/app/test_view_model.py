@@ -252,3 +252,68 @@ def test_a_redraw_sends_only_the_panels_that_changed(services, iris_token):
     rest_after_k, _ = send(state.replace(components=3), shown_rest, False)
     assert sent_ids(rest_after_k, False) == {"variance-graph.figure", "diagnostics-graph.figure",
                                              "flagged-list.children", "provenance.children"}
+
+
+def _batch_token(services, frame, name="batch.csv"):
+    return services.store.add_bytes(frame.to_csv(index=False).encode(), name).token
+
+
+def test_a_new_batch_is_scored_as_scikit_learn_transforms_it(services, iris_token):
+    # Reference: scikit-learn's PCA fitted on the autoscaled iris (sample standard
+    # deviation, as the recipe uses), then .transform() of the new rows scaled with
+    # the reference means and deviations; signs follow each library's own rule.
+    reference = iris_frame()
+    batch = reference.iloc[100:110].copy()
+    batch["flower"] = [f"N{i:02d}" for i in range(10)]
+    batch["petal length (cm)"] += 1.5  # a shifted batch
+    state = ViewState(dataset=iris_token, batch=_batch_token(services, batch), pc_x=1, pc_y=2)
+    view = vm.build_view(services, state, wait=True)
+    assert view.errors == () and view.notices == ()
+    X = reference.iloc[:, 2:].to_numpy()
+    mean, sd = X.mean(0), X.std(0, ddof=1)
+    expected = PCA().fit((X - mean) / sd).transform((batch.iloc[:, 2:].to_numpy() - mean) / sd)
+    trace = next(t for t in view.scores_figure.data if t.name.startswith("New batch"))
+    assert trace.name == "New batch (10)"
+    for axis, component in (("x", 0), ("y", 1)):
+        ours = np.asarray(trace[axis], dtype=float)
+        sign = np.sign(ours @ expected[:, component])
+        np.testing.assert_allclose(ours, sign * expected[:, component], atol=1e-5)  # float32 on the wire
+    assert list(trace.customdata[:, 0]) == list(batch["flower"])
+
+
+def test_a_new_batch_uses_the_t2_limit_for_new_samples(services, iris_token):
+    # Tracy, Young & Mason (1992): T²-limit for a new observation
+    # k (n - 1)(n + 1) / (n (n - k)) F(1 - alpha; k, n - k), evaluated with scipy.
+    from scipy import stats
+
+    batch = iris_frame().iloc[:5].copy()
+    state = ViewState(dataset=iris_token, batch=_batch_token(services, batch), components=2, confidence=0.99)
+    view = vm.build_view(services, state, wait=True)
+    n, k = 150, 2
+    expected = k * (n - 1) * (n + 1) / (n * (n - k)) * stats.f.ppf(0.99, k, n - k)
+    assert view.batch.projection.t2_limit == pytest.approx(expected, rel=1e-12)
+    shapes = {shape.name: shape.x0 for shape in view.diagnostics_figure.layout.shapes}
+    assert shapes["t2-limit-new"] == pytest.approx(expected) and shapes["t2-limit-new"] > shapes["t2-limit"]
+    # The batch's T² and Q are the same numbers as those of the same rows in the model.
+    model_view = vm.build_view(services, ViewState(dataset=iris_token, components=2, confidence=0.99), wait=True)
+    model_trace = [t for t in model_view.diagnostics_figure.data if t.name == "setosa"][0]
+    batch_trace = [t for t in view.diagnostics_figure.data if t.name.startswith("New batch")][0]
+    np.testing.assert_allclose(np.asarray(batch_trace.x, float), np.asarray(model_trace.x, float)[:5], rtol=1e-5)
+
+
+def test_a_batch_that_cannot_be_scored_is_a_notice_not_a_failure(services, iris_token):
+    batch = iris_frame().iloc[:5].drop(columns="petal width (cm)")
+    view = vm.build_view(services, ViewState(dataset=iris_token, batch=_batch_token(services, batch)), wait=True)
+    assert view.errors == () and view.batch is None
+    assert any("cannot be scored" in n and "petal width (cm)" in n for n in view.notices)
+    gone = vm.build_view(services, ViewState(dataset=iris_token, batch="Q" * 20), wait=True)
+    assert gone.batch is None and any("not known here" in n for n in gone.notices)
+
+
+def test_a_picked_new_batch_sample_shows_its_contributions(services, iris_token):
+    batch = iris_frame().iloc[:3].copy()
+    batch["flower"] = ["N0", "N1", "N2"]
+    view = vm.build_view(services, ViewState(dataset=iris_token, batch=_batch_token(services, batch), picked="N1"),
+                         wait=True)
+    assert "What drives new-batch sample N1" in str(view.contributions)
+    assert "Leave this sample out" not in str(view.contributions)  # it is not in the model

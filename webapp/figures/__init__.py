@@ -10,7 +10,7 @@ column 0 is the sample's label (see :mod:`webapp.figures.scores`);
 ``selectedData``. Give ``dcc.Graph`` the ``config=GRAPH_CONFIG``.
 """
 
-from webapp.figures._points import WEBGL_THRESHOLD, point_label, point_labels
+from webapp.figures._points import WEBGL_THRESHOLD, BatchPoints, point_label, point_labels
 from webapp.figures.diagnostics import CAUTION, contributions_figure, diagnostics_figure, flagged_samples
 from webapp.figures.loadings import correlation_circle_figure, loadings_bar_figure
 from webapp.figures.palette import (
@@ -43,6 +43,7 @@ from webapp.figures.variance import (
 )
 
 __all__ = [
+    "BatchPoints",
     "ALL_SAMPLES_GROUP",
     "CAUTION",
     "DENSITY_THRESHOLD",

@@ -13,6 +13,7 @@ Lines (ellipses, limit lines) and rings carry no ``customdata``.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Sequence
 
 import numpy as np
@@ -22,10 +23,40 @@ from webapp.analysis.errors import OrdinateError
 from webapp.figures.palette import GroupStyle, group_names, group_order, group_styles
 from webapp.figures.text import escape_array, template_literal
 
-__all__ = ["WEBGL_THRESHOLD", "point_label", "point_labels"]
+__all__ = ["WEBGL_THRESHOLD", "BatchPoints", "point_label", "point_labels"]
 
 #: Above this many points, point traces use WebGL (``go.Scattergl``).
 WEBGL_THRESHOLD = 1_500
+
+
+@dataclass(frozen=True, eq=False)
+class BatchPoints:
+    """Samples of a new batch scored against the model, drawn over the model's samples.
+
+    ``x`` and ``y`` are the plot's coordinates (two components' scores, or T² and
+    Q); ``name`` is the legend text (plain text).
+    """
+
+    x: np.ndarray
+    y: np.ndarray
+    labels: np.ndarray
+    name: str
+
+
+# Dark stars with a white rim: apart from every group's colour and symbol.
+BATCH_STYLE = GroupStyle(colour="#1D2433", symbol="star")
+
+
+def batch_trace(batch: BatchPoints, marker_size: float, hover_lines: Sequence[str], text_size: int):
+    """The trace of a new batch's samples (WebGL above :data:`WEBGL_THRESHOLD` of them)."""
+    xs = as_float32(batch.x, "new batch x")
+    n = xs.shape[0]
+    return point_trace(
+        x=xs, y=as_float32(batch.y, "new batch y", n), labels=as_labels(batch.labels, n), hover=[],
+        name=batch.name, legend_group="new-batch", style=BATCH_STYLE, marker_size=marker_size * 1.6,
+        hover_lines=hover_lines, show_text=False, text_size=text_size, webgl=n > WEBGL_THRESHOLD,
+        outline=dict(width=1.0, color="#FFFFFF"),
+    )
 
 
 def point_label(point: dict) -> str | None:

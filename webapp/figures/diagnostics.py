@@ -22,7 +22,15 @@ import plotly.graph_objects as go
 from plotly.subplots import make_subplots
 
 from webapp.analysis.errors import OrdinateError
-from webapp.figures._points import WEBGL_THRESHOLD, as_float32, as_labels, point_trace, resolve_groups
+from webapp.figures._points import (
+    WEBGL_THRESHOLD,
+    BatchPoints,
+    as_float32,
+    as_labels,
+    batch_trace,
+    point_trace,
+    resolve_groups,
+)
 from webapp.figures.palette import NEGATIVE_COLOUR, POSITIVE_COLOUR, GroupStyle
 from webapp.figures.scores import DENSITY_THRESHOLD, _density_trace, _ring_trace
 from webapp.figures.text import count_text, escape_text, level_percent
@@ -122,6 +130,8 @@ def diagnostics_figure(
     log_axes: bool = False,
     group_order: Sequence[str] | None = None,
     presentation: bool = False,
+    batch: BatchPoints | None = None,
+    batch_t2_limit: float | None = None,
 ) -> go.Figure:
     """T² (x) against Q (y), with dashed limit lines and flagged samples outlined.
 
@@ -131,6 +141,11 @@ def diagnostics_figure(
     legend entry, which also carries the labels in ``customdata[0]``). With
     ``q_limit`` 0 (every component kept) there is no Q line and a note says
     why. ``log_axes`` uses logarithmic axes (Q stays linear when it is zero).
+
+    ``batch``: a new batch's samples (x T², y Q) as dark stars, with the T²
+    limit for new samples, ``batch_t2_limit``, as a dotted line named
+    "t2-limit-new" (wider than the limit for the model's own samples; Tracy,
+    Young & Mason 1992). The Q limit is the same for both.
     """
     style = style_for(presentation)
     t2_values = as_float32(t2, "T² values")
@@ -158,6 +173,15 @@ def diagnostics_figure(
         label=dict(text=f"T² limit ({level})", textposition="end", textangle=0, xanchor="left",
                    yanchor="top", padding=4, font=dict(size=style.note_size, color=MUTED_TEXT_COLOUR)),
     )]
+    if batch is not None and batch_t2_limit is not None:
+        new_limit = _positive_limit(batch_t2_limit, "T² limit for new samples", allow_zero=False)
+        shapes.append(dict(
+            type="line", name="t2-limit-new", xref="x", yref="paper", x0=new_limit, x1=new_limit, y0=0, y1=1,
+            line=dict(color=_LIMIT_COLOUR, dash="dot", width=style.line_width),
+            # Labelled at the foot of the line, clear of the other T² limit's label at the top.
+            label=dict(text=f"T² limit, new samples ({level})", textposition="start", textangle=0,
+                       xanchor="left", yanchor="bottom", padding=4, font=dict(size=style.note_size, color=MUTED_TEXT_COLOUR)),
+        ))
     if q_limit > 0:
         shapes.append(dict(
             type="line", name="q-limit", xref="paper", yref="y", x0=0, x1=1, y0=q_limit, y1=q_limit,
@@ -204,8 +228,13 @@ def diagnostics_figure(
             text_size=style.label_size, webgl=webgl if present else index.size > WEBGL_THRESHOLD,
             outline=dict(width=style.line_width + 0.6, color=TEXT_COLOUR),
         ))
+    if batch is not None:
+        traces.append(batch_trace(batch, style.marker_size, hover_lines, style.label_size))
     if highlighted is not None:
         ring = _ring_trace(t2_values, q_values, label_array, str(highlighted), style)
+        if ring is None and batch is not None:
+            ring = _ring_trace(as_float32(batch.x, "new batch T²"), as_float32(batch.y, "new batch Q"),
+                               as_labels(batch.labels, len(batch.labels)), str(highlighted), style)
         if ring is not None:
             traces.append(ring)
     fig.add_traces(traces)

@@ -40,8 +40,10 @@ import plotly.graph_objects as go
 from webapp.analysis.errors import OrdinateError
 from webapp.figures._points import (
     WEBGL_THRESHOLD,
+    BatchPoints,
     as_float32,
     as_labels,
+    batch_trace,
     hover_columns,
     point_trace,
     resolve_groups,
@@ -381,6 +383,7 @@ def scores_figure(
     density: bool | None = None,
     group_order: Sequence[str] | None = None,
     presentation: bool = False,
+    batch: BatchPoints | None = None,
 ) -> go.Figure:
     """Scores plot of two components with equal axis scales.
 
@@ -399,6 +402,8 @@ def scores_figure(
 
     All strings are plain text; they are escaped before Plotly sees them.
     ``highlighted`` draws a ring around the sample(s) with that label.
+    ``batch``: samples of a new batch scored against the model, drawn as dark
+    stars on top (also in the density view).
     ``show_labels`` writes labels next to the points when there are at most
     :data:`LABEL_LIMIT` samples; ``hover_values`` are shown up to
     :data:`HOVER_VALUES_LIMIT` samples. ``group_order`` pins group styles (see
@@ -463,8 +468,14 @@ def scores_figure(
                 show_text=label_text, text_size=style.label_size, webgl=webgl,
             ))
     traces.extend(_ellipse_traces(ellipses, ellipse_groups, styles, style))
+    if batch is not None:
+        traces.append(batch_trace(batch, style.marker_size, [
+            f"{template_literal(x_name)}: %{{x:.4g}}", f"{template_literal(y_name)}: %{{y:.4g}}"], style.label_size))
     if highlighted is not None:
         ring = _ring_trace(xs, ys, label_array, str(highlighted), style)
+        if ring is None and batch is not None:
+            ring = _ring_trace(as_float32(batch.x, "new batch x"), as_float32(batch.y, "new batch y"),
+                               as_labels(batch.labels, len(batch.labels)), str(highlighted), style)
         if ring is not None:
             traces.append(ring)
     fig.add_traces(traces)

@@ -24,6 +24,7 @@ from webapp.state import NO_COLOUR, ViewState, parse_query, to_query
 from webapp.ui import layout as L
 from webapp.ui import view_model as vm
 from webapp.ui.components import (
+    batch_panel,
     dataset_summary,
     excluded_chips,
     export_link_list,
@@ -103,6 +104,7 @@ _REST_OUTPUTS = [
     Output(L.DIAGNOSTICS_GRAPH, "figure"),
     Output(L.FLAGGED_LIST, "children"),
     Output(L.CONTRIBUTIONS, "children"),
+    Output(L.BATCH_PANEL, "children"),
     Output(L.LOADINGS_GRAPH, "figure"),
     Output(L.CIRCLE_GRAPH, "figure"),
     Output(L.PROVENANCE, "children"),
@@ -277,6 +279,7 @@ def _rest_outputs(view: "vm.View") -> list:
         view.diagnostics_figure,
         flagged_table(view.flagged),
         view.contributions,
+        batch_panel(view.batch, view.state.confidence),
         view.loadings_figure,
         view.circle_figure,
         provenance_block(view.provenance),
@@ -422,16 +425,28 @@ def _register_actions(app, services) -> None:
 
     @app.callback(url_out, Output(L.NOTICES, "children", allow_duplicate=True),
                   Output(L.MANAGE_LINKS, "data"), Output(L.DATASET_DETAILS, "open"),
-                  Input(L.UPLOAD_RESULT, "data"), State(L.MANAGE_LINKS, "data"), prevent_initial_call=True)
-    def open_uploaded(result, links):
+                  Input(L.UPLOAD_RESULT, "data"), State(L.MANAGE_LINKS, "data"), State(L.URL, "search"),
+                  prevent_initial_call=True)
+    def open_uploaded(result, links, search):
         if not result:
             raise PreventUpdate
         if result.get("error"):
             return no_update, notice_list((), (result["error"],)), no_update, no_update
         manage = (result.get("summary") or {}).get("manage")
         links = {**(links or {}), result["token"]: manage} if manage else no_update
+        current, _ = parse_query(search)
+        if result.get("purpose") == "batch" and current.dataset is not None:
+            # Scored against the open view's model; the batch stays a dataset of its own too.
+            return _search_if_changed(current, current.replace(batch=result["token"])), no_update, links, no_update
         # Open "About this data" so the uploader sees the summary and the manage link.
         return "?" + to_query(ViewState(dataset=result["token"])), no_update, links, True
+
+    @app.callback(url_out, Input(L.BATCH_REMOVE, "n_clicks"), State(L.URL, "search"), prevent_initial_call=True)
+    def stop_scoring_batch(clicks, search):
+        if not clicks:
+            raise PreventUpdate
+        current, _ = parse_query(search)
+        return _search_if_changed(current, current.replace(batch=None))
 
     @app.callback(Output(L.MANAGE_BOX, "children"), Input(L.URL, "search"), Input(L.MANAGE_LINKS, "data"))
     def show_manage_link(search, links):
@@ -450,7 +465,7 @@ def _register_actions(app, services) -> None:
         if state.dataset is None:
             raise PreventUpdate
         query = to_query(state)
-        return f"/export/variance.csv?{query}", export_link_list(query, state.saved_view)
+        return f"/export/variance.csv?{query}", export_link_list(query, state.saved_view, batch=state.batch is not None)
 
 
 def _register_clientside(app) -> None:

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 from dash import html
 
+from webapp.ui.layout import BATCH_REMOVE
+
 
 def notice_list(notices, errors) -> list:
     items = [html.Li(text, className="notice notice-error") for text in errors]
@@ -113,14 +115,15 @@ def _verdict(value) -> str:
 MAX_FLAGGED_ROWS = 50
 
 
-def flagged_table(rows: list[dict]) -> list:
+def flagged_table(rows: list[dict], *, heading: str | None = None,
+                  empty_text: str = "No sample is above either limit at this confidence.") -> list:
     if not rows:
-        return [html.P("No sample is above either limit at this confidence.", className="quiet")]
+        return [html.P(empty_text, className="quiet")]
     shown = rows[:MAX_FLAGGED_ROWS]
     more = (f"The {len(shown)} furthest beyond a limit are listed; the diagnostics CSV (Downloads) has all of them."
             if len(rows) > len(shown) else None)
     return [
-        html.H3(f"{len(rows)} sample(s) above a limit"),
+        html.H3(heading or f"{len(rows)} sample(s) above a limit"),
         html.P(more, className="quiet") if more else None,
         html.Table(className="flagged-table", children=[
             html.Thead(html.Tr([html.Th("Sample"), html.Th("T²"), html.Th("Q"), html.Th("Above")])),
@@ -135,6 +138,30 @@ def flagged_table(rows: list[dict]) -> list:
             ]),
         ]),
     ]
+
+
+def batch_panel(batch, confidence: float):
+    """A new batch scored against the model: counts, cautions, the samples beyond a limit."""
+    if batch is None:
+        return None
+    rows, n = batch.rows(), len(batch.labels)
+    level = f"{confidence * 100:g} %"
+    p = batch.projection
+    return html.Div([
+        html.Div(className="batch-head", children=[
+            html.H3(f"New batch: {batch.name}"),
+            html.Button("Stop scoring this batch", id=BATCH_REMOVE, n_clicks=0, className="small-button"),
+        ]),
+        html.P(f"{n} sample(s) scored against this model without refitting it; {len(rows)} beyond a {level} "
+               f"limit for new samples (T² {p.t2_limit:.3g}, Q {p.q_limit:.3g}). They are the dark stars on the "
+               "scores plot and on T² against Q."),
+        html.P(className="caution", children=(
+            "The T² limit for new samples is wider than for the model's own samples (Tracy, Young & Mason "
+            "1992). A new batch is not released or rejected on these charts alone: follow your validated "
+            "local procedures.")),
+        *flagged_table(rows, heading=f"{len(rows)} new sample(s) above a limit",
+                       empty_text="No sample of the new batch is above either limit for new samples."),
+    ])
 
 
 def provenance_block(provenance: dict) -> html.Dl:
@@ -162,9 +189,10 @@ EXPORTS = (
 )
 
 
-def export_link_list(query: str, saved_view: str | None) -> list:
+def export_link_list(query: str, saved_view: str | None, *, batch: bool = False) -> list:
+    exports = EXPORTS + ((("batch.csv", "New batch: scores, T² and Q (CSV)"),) if batch else ())
     links = [html.A(label, href=f"/export/{name}?{query}", download="", className="small-button")
-             for name, label in EXPORTS]
+             for name, label in exports]
     if saved_view:
         links.append(html.A("Report of this saved view (HTML)", href=f"/v/{saved_view}/report.html",
                             download="", className="small-button"))

@@ -70,6 +70,9 @@ CONFIDENCE = "confidence"
 DIAGNOSTICS_GRAPH = "diagnostics-graph"
 FLAGGED_LIST = "flagged-list"
 CONTRIBUTIONS = "contributions"
+BATCH_BUTTON = "batch-button"
+BATCH_PANEL = "batch-panel"
+BATCH_REMOVE = "batch-remove"
 
 LOADING_PC = "loading-pc"
 LOADINGS_GRAPH = "loadings-graph"
@@ -317,6 +320,10 @@ def _diagnostics_card() -> html.Section:
             html.Div(className="toolbar", children=[
                 _inline("confidence", dcc.Dropdown(id=CONFIDENCE, clearable=False, className="conf-select",
                                                    options=[{"label": f"{c * 100:g} %", "value": c} for c in CONFIDENCE_CHOICES])),
+                # assets/upload.js sends the chosen file as a batch to score against this model.
+                html.Button("Score a new batch…", id=BATCH_BUTTON, className="small-button", n_clicks=0,
+                            title="Choose a CSV file with the same variables: its samples are placed on this "
+                                  "model's scores plot and on T² against Q, without refitting the model."),
             ]),
         ]),
         html.P(className="caution", children=(
@@ -329,6 +336,7 @@ def _diagnostics_card() -> html.Section:
             html.Div(id=FLAGGED_LIST, className="flagged-list"),
         ]),
         _svg_button(DIAGNOSTICS_GRAPH),
+        html.Div(id=BATCH_PANEL, className="batch-panel"),
         html.Div(id=CONTRIBUTIONS, className="contributions"),
     ])
 

@@ -22,10 +22,12 @@ from webapp.analysis import ENGINE_VERSION
 from webapp.analysis.diagnostics import q_residual_row, t2_contributions
 from webapp.analysis.ellipses import hotelling_ellipse, try_sigma_ellipse
 from webapp.analysis.errors import OrdinateError
-from webapp.analysis.pipeline import diagnose
+from webapp.analysis.model_io import Projection, model_from_analysis, project_table
+from webapp.analysis.pipeline import Analysis, diagnose
 from webapp.analysis.recipe import Recipe
 from webapp.compute import fit_key
 from webapp.figures import (
+    BatchPoints,
     axis_title,
     contributions_figure,
     correlation_circle_figure,
@@ -87,6 +89,7 @@ class View:
     diagnostics_figure = property(lambda self: self.panels.get("diagnostics", go.Figure))
     flagged = property(lambda self: self.panels.get("flagged", list))
     contributions = property(lambda self: self.panels.get("contributions", lambda: None))
+    batch = property(lambda self: self.panels.get("batch", lambda: None))
     loadings_figure = property(lambda self: self.panels.get("loadings", go.Figure))
     circle_figure = property(lambda self: self.panels.get("circle", go.Figure))
 
@@ -118,6 +121,24 @@ class Resolved:
     fitted: object
     notices: tuple[str, ...]
     complete: bool = True  # False while parallel analysis is still running
+
+
+@dataclass(frozen=True, eq=False)
+class BatchScores:
+    """A new batch scored against the view's model (at the view's K and confidence)."""
+
+    name: str
+    matrix: np.ndarray  # the batch after the model's own preprocessing
+    projection: Projection
+
+    @property
+    def labels(self) -> tuple[str, ...]:
+        return self.projection.sample_labels
+
+    def rows(self) -> list[dict]:
+        """Batch samples beyond a limit for new samples, furthest first (as ``flagged_samples``)."""
+        p = self.projection
+        return flagged_samples(p.sample_labels, p.t2, p.q, p.t2_limit, p.q_limit)
 
 
 def resolve(services, state: ViewState) -> Resolved:
@@ -222,7 +243,15 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
     components = components_choice(state, fitted, notices)
     diagnostics = diagnose(fitted, components, state.confidence)
     groups, colour_column = _groups(state, table, fitted)
-    keys = _panel_keys(state, resolved, diagnostics, colour_column, pc_x, pc_y, loading_pc)
+    batch_record = services.store.dataset(state.batch) if state.batch else None
+    if state.batch and batch_record is None:
+        notices.append("The new batch named in this link is not known here (it may have been deleted); "
+                       "it is not shown.")
+    keys = _panel_keys(state, resolved, diagnostics, colour_column, pc_x, pc_y, loading_pc,
+                       (batch_record.content_hash, batch_record.display_name) if batch_record else None)
+    batch, batch_notices = (None, ()) if batch_record is None else services.compute.drawing(
+        keys["batch"], lambda: score_batch(services, batch_record, fitted, diagnostics))
+    notices.extend(batch_notices)
     rows = variance_table_rows(
         pca.eigenvalues[:MAX_TABLE_COMPONENTS], pca.explained_variance_ratio[:MAX_TABLE_COMPONENTS],
         pca.cumulative_explained[:MAX_TABLE_COMPONENTS], kaiser=fitted.advice.kaiser,
@@ -245,7 +274,8 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
         advice_text=advice_text(fitted.advice, diagnostics.components, state.components is None,
                                 pending=not resolved.complete),
         panels=LazyPanels({
-            "scores": lambda: draw(keys["scores"], lambda: _scores_panel(state, fitted, table, groups, pc_x, pc_y)),
+            "scores": lambda: draw(keys["scores"], lambda: _scores_panel(state, fitted, table, groups, pc_x, pc_y,
+                                                                         batch)),
             "variance": lambda: draw(keys["variance"], lambda: variance_figure(
                 eigenvalues=pca.eigenvalues, explained_ratio=pca.explained_variance_ratio,
                 cumulative=pca.cumulative_explained, broken_stick=fitted.advice.broken_stick_expectation,
@@ -257,11 +287,16 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
                 t2=diagnostics.t2, q=diagnostics.q, labels=np.asarray(fitted.prepared.sample_labels, dtype=object),
                 groups=groups, t2_limit=diagnostics.t2_limit, q_limit=diagnostics.q_limit,
                 confidence=diagnostics.confidence, highlighted=state.picked, presentation=state.present,
+                batch=None if batch is None else BatchPoints(
+                    x=batch.projection.t2, y=batch.projection.q, labels=np.asarray(batch.labels, dtype=object),
+                    name=batch_legend(batch)),
+                batch_t2_limit=None if batch is None else batch.projection.t2_limit,
             )),
+            "batch": lambda: batch,
             "flagged": lambda: draw(keys["flagged"], lambda: flagged_samples(
                 fitted.prepared.sample_labels, diagnostics.t2, diagnostics.q, diagnostics.t2_limit,
                 diagnostics.q_limit)),
-            "contributions": lambda: _contributions(state, fitted, diagnostics),
+            "contributions": lambda: _contributions(state, fitted, diagnostics, batch),
             "loadings": lambda: draw(keys["loadings"], lambda: loadings_bar_figure(
                 variables=fitted.prepared.variables, loadings=pca.loadings[:, loading_pc - 1], component=loading_pc,
                 explained_ratio=float(pca.explained_variance_ratio[loading_pc - 1]), presentation=state.present,
@@ -274,7 +309,8 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
     )
 
 
-def _panel_keys(state: ViewState, resolved: Resolved, diagnostics, colour_column, pc_x, pc_y, loading_pc) -> dict:
+def _panel_keys(state: ViewState, resolved: Resolved, diagnostics, colour_column, pc_x, pc_y, loading_pc,
+                batch_id: tuple | None) -> dict:
     """What each drawn panel depends on, beginning with the fit.
 
     Equal keys mean equal panels: the compute layer keeps recently drawn panels
@@ -285,9 +321,10 @@ def _panel_keys(state: ViewState, resolved: Resolved, diagnostics, colour_column
     return {
         "scores": ("scores", fit[0], pc_x, pc_y, state.sigma_levels, state.ellipse_by, state.arrows,
                    state.biplot_scaling, state.labels, state.picked, colour_column, state.present,
-                   state.hotelling and confidence),
+                   state.hotelling and confidence, batch_id),
         "variance": ("variance", fit, k, state.present),
-        "diagnostics": ("diagnostics", fit[0], k, confidence, state.picked, colour_column, state.present),
+        "diagnostics": ("diagnostics", fit[0], k, confidence, state.picked, colour_column, state.present, batch_id),
+        "batch": ("batch", fit[0], k, confidence, batch_id),
         "flagged": ("flagged", fit[0], k, confidence),
         "loadings": ("loadings", fit[0], loading_pc, state.present),
         "circle": ("circle", fit[0], pc_x, pc_y, state.present),
@@ -388,7 +425,7 @@ def group_labels(column, rows: np.ndarray) -> np.ndarray:
     return text
 
 
-def _scores_panel(state: ViewState, fitted, table, groups, pc_x: int, pc_y: int) -> go.Figure:
+def _scores_panel(state: ViewState, fitted, table, groups, pc_x: int, pc_y: int, batch=None) -> go.Figure:
     pca, prepared = fitted.pca, fitted.prepared
     x, y = pca.scores[:, pc_x - 1], pca.scores[:, pc_y - 1]
     ratios = pca.explained_variance_ratio
@@ -412,7 +449,29 @@ def _scores_panel(state: ViewState, fitted, table, groups, pc_x: int, pc_y: int)
         x_title=axis_title(pc_x, float(ratios[pc_x - 1])), y_title=axis_title(pc_y, float(ratios[pc_y - 1])),
         hover_values=hover, ellipses=ellipses, ellipse_groups=owners, arrows=arrows,
         show_labels=state.labels, highlighted=state.picked, presentation=state.present,
+        batch=None if batch is None else BatchPoints(
+            x=batch.matrix @ pca.loadings[:, pc_x - 1], y=batch.matrix @ pca.loadings[:, pc_y - 1],
+            labels=np.asarray(batch.labels, dtype=object), name=batch_legend(batch)),
     )
+
+
+def score_batch(services, record, fitted, diagnostics) -> tuple[BatchScores | None, tuple[str, ...]]:
+    """A new batch scored against the model at the view's K: the scores, and notices for the page."""
+    name = record.display_name
+    try:
+        table = services.compute.table(record)
+        model = model_from_analysis(Analysis(fitted, diagnostics))
+        projection = project_table(model, table, diagnostics.confidence)
+        matrix, _ = model.preprocessor.transform_frame(table.frame)
+    except OrdinateError as error:
+        return None, (f"The new batch “{name}” cannot be scored against this model: {error}",)
+    notices = tuple(f"New batch “{name}”: {warning}" for warning in (*table.warnings, *projection.warnings))
+    return BatchScores(name, matrix, projection), notices
+
+
+def batch_legend(batch: BatchScores) -> str:
+    # Short, so the legend beside T² against Q leaves the plot its width; the panel names the file.
+    return f"New batch ({len(batch.labels)})"
 
 
 def _sigma_ellipses(state: ViewState, x, y, groups) -> tuple[list, list]:
@@ -431,19 +490,26 @@ def _sigma_ellipses(state: ViewState, x, y, groups) -> tuple[list, list]:
     return ellipses, owners
 
 
-def _contributions(state: ViewState, fitted, diagnostics):
+def _contributions(state: ViewState, fitted, diagnostics, batch: BatchScores | None = None):
+    """Why the picked sample stands out: a sample of the model, or else of the new batch."""
     if state.picked is None:
         return None
     labels = fitted.prepared.sample_labels
-    if state.picked not in labels:
+    k = diagnostics.components
+    if state.picked in labels:
+        row = labels.index(state.picked)
+        x_row, t2, q = fitted.prepared.matrix[row], diagnostics.t2[row], diagnostics.q[row]
+        t2_limit, q_limit, whose = diagnostics.t2_limit, diagnostics.q_limit, "sample"
+    elif batch is not None and state.picked in batch.labels:
+        row, p = batch.labels.index(state.picked), batch.projection
+        x_row, t2, q = batch.matrix[row], p.t2[row], p.q[row]
+        t2_limit, q_limit, whose = p.t2_limit, p.q_limit, "new-batch sample"
+    else:
         return None
     from dash import dcc, html  # components only, no callbacks: keeps this module importable in tests
 
     from webapp.figures import GRAPH_CONFIG
 
-    row = labels.index(state.picked)
-    k = diagnostics.components
-    x_row = fitted.prepared.matrix[row]
     loadings = fitted.pca.loadings[:, :k]
     figure = contributions_figure(
         variables=fitted.prepared.variables,
@@ -451,13 +517,13 @@ def _contributions(state: ViewState, fitted, diagnostics):
         q_residuals=q_residual_row(x_row, loadings),
         label=state.picked, presentation=state.present,
     )
+    leave_out = [] if whose != "sample" else [html.Button(
+        "Leave this sample out", id={"type": "exclude-picked", "index": 0}, n_clicks=0, className="small-button")]
     return html.Div([
         html.Div(className="contributions-head", children=[
-            html.H3(f"What drives sample {state.picked}"),
-            html.Span(f"T² {diagnostics.t2[row]:.3g} (limit {diagnostics.t2_limit:.3g}) · "
-                      f"Q {diagnostics.q[row]:.3g} (limit {diagnostics.q_limit:.3g})"),
-            html.Button("Leave this sample out", id={"type": "exclude-picked", "index": 0}, n_clicks=0,
-                        className="small-button"),
+            html.H3(f"What drives {whose} {state.picked}"),
+            html.Span(f"T² {t2:.3g} (limit {t2_limit:.3g}) · Q {q:.3g} (limit {q_limit:.3g})"),
+            *leave_out,
         ]),
         dcc.Graph(figure=figure, config=GRAPH_CONFIG, className="contributions-graph"),
     ])
