@@ -36,6 +36,7 @@ from webapp.report import (
     write_report,
 )
 from webapp.state import ViewState, to_query
+from webapp.ui.view_model import build_view
 
 MALICIOUS_NOTE = """# Findings
 
@@ -304,3 +305,18 @@ def test_report_main(services, iris, tmp_path, capsys):
     assert not (tmp_path / "typo").exists()
     with pytest.raises(OrdinateError, match="does not exist"):
         report_main(data_dir, saved.view_id, tmp_path / "missing" / "z.html")
+
+
+def test_a_scored_new_batch_is_summarised_with_its_escaped_labels(services, iris):
+    batch = iris_frame().iloc[:4].copy()
+    batch["flower"] = ["<b>N0</b>", "N1", "N2", "N3"]
+    batch["petal length (cm)"] += 4.0  # every sample far off the model plane
+    token = services.store.add_bytes(batch.to_csv(index=False).encode("utf-8"), "batch <2>.csv").token
+    state = ViewState(dataset=iris.token, batch=token)
+    report = without_bundle(build_report_html(services, save(services, iris, state)))
+    diagnostics = section(report, "diagnostics")
+    assert "New batch “batch &lt;2&gt;.csv” (the stars): 4 samples scored against this model" in diagnostics
+    flagged = build_view(services, state, wait=True).batch.rows()
+    assert flagged and f"{len(flagged)} above a limit for new samples" in diagnostics
+    assert diagnostics.count("<tr><th scope=\"row\">") >= len(flagged)
+    assert "<b>N0</b>" not in diagnostics  # labels are text, never markup

@@ -258,18 +258,32 @@ def _diagnostics_summary(view, diagnostics) -> str:
         f"T² limit {diagnostics.t2_limit:.4g}, Q limit {diagnostics.q_limit:.4g} by {_e(diagnostics.q_limit_method)}. "
         f"{len(view.flagged)} of {n} samples are above a limit.</p>"
     )
-    if not view.flagged:
-        return text
-    shown = view.flagged[:MAX_FLAGGED_ROWS]
+    text += _flag_table(view.flagged, "Samples above a limit, furthest first", "diagnostics")
+    batch = view.batch
+    if batch is not None:
+        rows, p = batch.rows(), batch.projection
+        text += (
+            f"<p>New batch “{_e(batch.name)}” (the stars): {len(batch.labels)} samples scored against this model "
+            f"without refitting it; {len(rows)} above a limit for new samples (T² {p.t2_limit:.4g}, the wider "
+            f"limit for new samples of Tracy, Young &amp; Mason 1992; Q {p.q_limit:.4g}).</p>"
+            + _flag_table(rows, "New-batch samples above a limit, furthest first", "new batch")
+        )
+    return text
+
+
+def _flag_table(flagged: list, caption: str, download: str) -> str:
+    if not flagged:
+        return ""
+    shown = flagged[:MAX_FLAGGED_ROWS]
     rows = "\n".join(
         f'<tr><th scope="row">{_e(row["label"])}</th><td>{row["t2"]:.3f}</td><td>{row["q"]:.3f}</td>'
         f"<td>{_e(_limits_exceeded(row))}</td></tr>"
         for row in shown
     )
-    more = (f"<p>The {len(view.flagged) - len(shown)} further flagged samples are in the dashboard's "
-            "diagnostics download.</p>") if len(view.flagged) > len(shown) else ""
+    more = (f"<p>The {len(flagged) - len(shown)} further flagged samples are in the dashboard's "
+            f"{download} download.</p>") if len(flagged) > len(shown) else ""
     return (
-        text + '<table class="flagged-table">\n<caption>Samples above a limit, furthest first</caption>\n'
+        f'<table class="flagged-table">\n<caption>{_e(caption)}</caption>\n'
         '<thead><tr><th scope="col">Sample</th><th scope="col">T²</th><th scope="col">Q</th>'
         '<th scope="col">Above</th></tr></thead>\n<tbody>\n' + rows + "\n</tbody>\n</table>" + more
     )
