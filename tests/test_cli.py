@@ -93,3 +93,36 @@ def test_report_command_writes_a_self_contained_file(iris_csv, tmp_path, capsys)
     assert "Iris overview" in text and "2.9185" in text and "<script src=" not in text
     assert main(["report", "Z" * 24, "--data-dir", str(tmp_path / "data"), "--out", str(out)]) == 2
     assert "Traceback" not in capsys.readouterr().err
+
+
+def test_datasets_list_and_delete_for_an_administrator(iris_csv, tmp_path, capsys):
+    from webapp.app import create_services
+    from webapp.config import AppConfig
+    from webapp.state import ViewState
+    from webapp.ui import view_model as vm
+
+    data_dir = tmp_path / "served"
+    services = create_services(AppConfig(data_dir=data_dir, demo_dataset=None))
+    kept = services.store.add_bytes(b"a,b\n1,2\n3,5\n4,4\n", "small.csv", title="Kept")
+    gone = services.store.add_bytes(iris_csv.read_bytes(), "iris.csv")
+    services.store.save_view(gone.token, f"v=1&ds={gone.token}", title="t", content_hash=gone.content_hash,
+                             engine_version="1")
+    vm.build_view(services, ViewState(dataset=gone.token), wait=True)  # cached results to be removed
+    assert any(gone.content_hash in key for key in services.compute.cache.iterkeys() if isinstance(key, str))
+
+    assert main(["datasets", "list", "--data-dir", str(data_dir)]) == 0
+    listing = capsys.readouterr().out.splitlines()
+    assert [line.split()[0] for line in listing[1:]] == [kept.token, gone.token]  # oldest first
+    assert "16 B" in listing[1] and "Kept (small.csv)" in listing[1]  # four lines of four bytes
+    assert listing[2].split()[5] == "1"  # one saved view (columns: code, date, time, size, unit, views)
+
+    assert main(["datasets", "delete", gone.token, "--data-dir", str(data_dir)]) == 2  # no --yes: nothing goes
+    assert "nothing was deleted" in capsys.readouterr().err
+    assert services.store.dataset(gone.token) is not None
+
+    assert main(["datasets", "delete", gone.token, "--data-dir", str(data_dir), "--yes"]) == 0
+    assert "its 1 saved view(s)" in capsys.readouterr().out
+    assert services.store.dataset(gone.token) is None and services.store.dataset(kept.token) is not None
+    assert not services.store.blob_path(gone).exists()
+    assert not any(gone.content_hash in key for key in services.compute.cache.iterkeys() if isinstance(key, str))
+    assert main(["datasets", "delete", gone.token, "--data-dir", str(data_dir), "--yes"]) == 2  # already gone

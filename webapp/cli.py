@@ -41,6 +41,7 @@ def _parser() -> argparse.ArgumentParser:
     _add_project(commands)
     _add_serve(commands)
     _add_report(commands)
+    _add_datasets(commands)
     return parser
 
 
@@ -92,6 +93,25 @@ def _add_report(commands) -> None:
     cmd.add_argument("--data-dir", type=Path, default=Path(".ordinate-data"))
     cmd.add_argument("--out", type=Path, required=True, metavar="FILE", help="HTML file to write")
     cmd.set_defaults(run=_run_report)
+
+
+def _add_datasets(commands) -> None:
+    cmd = commands.add_parser("datasets", help="list or delete stored datasets (for administrators)")
+    actions = cmd.add_subparsers(dest="action", required=True)
+    listing = actions.add_parser("list", help="every stored dataset, oldest first")
+    listing.add_argument("--data-dir", type=Path, default=Path(".ordinate-data"))
+    listing.set_defaults(run=lambda args: _admin().list_main(args.data_dir))
+    delete = actions.add_parser("delete", help="delete a dataset with its saved views and cached results")
+    delete.add_argument("token", help="the dataset's link code (the part after ds= in its address)")
+    delete.add_argument("--data-dir", type=Path, default=Path(".ordinate-data"))
+    delete.add_argument("--yes", action="store_true", help="really delete (without it, only say what would go)")
+    delete.set_defaults(run=lambda args: _admin().delete_main(args.data_dir, args.token, confirmed=args.yes))
+
+
+def _admin():
+    from webapp import admin
+
+    return admin
 
 
 def _run_report(args) -> int:

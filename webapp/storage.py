@@ -199,6 +199,12 @@ class DataStore:
 
     # --- reading ------------------------------------------------------------
 
+    def datasets(self) -> list[DatasetRecord]:
+        """Every dataset, oldest first: for administrators at the server (no page lists datasets)."""
+        found = (self.index.get(key) for key in self.index.iterkeys()
+                 if isinstance(key, tuple) and key[0] == "dataset")
+        return sorted((DatasetRecord(**data) for data in found if data), key=lambda record: record.created)
+
     def dataset(self, token: object) -> DatasetRecord | None:
         if not is_token(token):
             return None
