@@ -73,6 +73,7 @@ valid_states = st.builds(
     dataset=st.none() | tokens,
     variables_off=st.lists(labels, max_size=5),
     excluded=st.lists(labels, max_size=8),
+    excluded_set=st.none() | tokens,
     transforms=st.dictionaries(labels, st.sampled_from(TRANSFORMS), max_size=4),
     missing=st.sampled_from(state_module.MISSING_POLICIES),
     centring=st.sampled_from(state_module.CENTRINGS),
@@ -190,7 +191,7 @@ def test_default_values():
 
 def test_default_query_spells_out_every_setting():
     assert to_query(ViewState()) == (
-        "v=1&ds=&off=&ex=&tf=&missing=drop&centre=mean&scale=unit&id=auto&k=auto&conf=0.95"
+        "v=1&ds=&off=&ex=&exset=&tf=&missing=drop&centre=mean&scale=unit&id=auto&k=auto&conf=0.95"
         "&x=1&y=2&sigma=2&ellipse=group&t2ellipse=0&colour=auto&arrows=1&biplot=correlation"
         "&labels=0&lpc=1&pick=&batch=&view=&present=0&slide=1"
     )
@@ -425,6 +426,7 @@ ALTERNATIVE_VALUES = {
     "dataset": "Z" * 16,
     "variables_off": ("pH",),
     "excluded": ("B-001",),
+    "excluded_set": "Xs7xT0c9LrV2aZk8",
     "transforms": (("pH", "log10"),),
     "missing": "mean",
     "centring": "none",

@@ -231,6 +231,7 @@ class ViewState:
     # the recipe: changing any of these refits
     variables_off: tuple[str, ...] = ()
     excluded: tuple[str, ...] = ()
+    excluded_set: str | None = None  # code of a stored list of excluded samples (long lists stay out of links)
     transforms: tuple[tuple[str, str], ...] = ()
     missing: str = "drop"
     centring: str = "mean"
@@ -257,7 +258,7 @@ class ViewState:
     slide: int = 1
 
     def __post_init__(self) -> None:
-        for name in ("dataset", "batch"):
+        for name in ("dataset", "batch", "excluded_set"):
             code = getattr(self, name)
             if code is not None and not (isinstance(code, str) and _TOKEN_PATTERN.fullmatch(code)):
                 raise ViewStateError(
@@ -307,6 +308,7 @@ class ViewState:
         return (
             self.variables_off,
             self.excluded,
+            self.excluded_set,
             self.transforms,
             self.missing,
             self.centring,
@@ -496,6 +498,7 @@ PARAMETERS: tuple[UrlParameter, ...] = (
     UrlParameter("ds", "dataset", "data", _read_token, _write_optional),
     UrlParameter("off", "variables_off", "recipe", _read_label, str, repeated=True),
     UrlParameter("ex", "excluded", "recipe", _read_label, str, repeated=True),
+    UrlParameter("exset", "excluded_set", "recipe", _read_token, _write_optional),
     UrlParameter("tf", "transforms", "recipe", _read_transform_pair, _write_transform_pair, repeated=True),
     UrlParameter("missing", "missing", "recipe", _read_choice(MISSING_POLICIES), str),
     UrlParameter("centre", "centring", "recipe", _read_choice(CENTRINGS), str),

@@ -15,8 +15,10 @@ worker processes.
 
 from __future__ import annotations
 
+import base64
 import hashlib
 import hmac
+import json
 import os
 import re
 import secrets
@@ -162,6 +164,36 @@ class DataStore:
         views = [self.view(view_id) for view_id in ids]
         return [v for v in views if v is not None]
 
+    # --- sample sets: long lists of excluded samples, kept out of the URL ----------
+
+    def save_sample_set(self, dataset_token: str, labels) -> str:
+        """Keep a list of sample labels for a dataset; returns its code for links.
+
+        The code is derived from the dataset and the sorted, distinct labels, so
+        the same set always gets the same code. Sets are immutable and are
+        deleted with their dataset.
+        """
+        if self.dataset(dataset_token) is None:
+            raise KeyError(dataset_token)
+        canonical = tuple(sorted({str(label) for label in labels}))
+        digest = hashlib.sha256(json.dumps([dataset_token, canonical], ensure_ascii=False).encode("utf-8"))
+        set_id = base64.urlsafe_b64encode(digest.digest()[:18]).decode("ascii")  # 144 bits, 24 characters
+        with self.index.transact():
+            if self.index.get(("sample-set", set_id)) is None:
+                self.index.set(("sample-set", set_id), {"dataset": dataset_token, "labels": canonical})
+                owned = self.index.get(("sets-of", dataset_token), ())
+                self.index.set(("sets-of", dataset_token), (*owned, set_id))
+        return set_id
+
+    def sample_set(self, dataset_token: str, set_id: object) -> tuple[str, ...] | None:
+        """The labels of a sample set of this dataset, or None (unknown code, or another dataset's set)."""
+        if not is_token(set_id):
+            return None
+        data = self.index.get(("sample-set", set_id))
+        if not data or data.get("dataset") != dataset_token:
+            return None
+        return tuple(data["labels"])
+
     # --- management (holders of the manage key only) -----------------------------
 
     def check_manage_key(self, dataset_token: str, key: object) -> bool:
@@ -187,6 +219,9 @@ class DataStore:
             for view_id in self.index.get(("views-of", dataset_token), ()):
                 self.index.delete(("view", view_id))
             self.index.delete(("views-of", dataset_token))
+            for set_id in self.index.get(("sets-of", dataset_token), ()):
+                self.index.delete(("sample-set", set_id))
+            self.index.delete(("sets-of", dataset_token))
             self.index.delete(("dataset", dataset_token))
             users = self.index.get(("blob-users", record.content_hash), 1) - 1
             if users > 0:

@@ -317,3 +317,45 @@ def test_a_picked_new_batch_sample_shows_its_contributions(services, iris_token)
                          wait=True)
     assert "What drives new-batch sample N1" in str(view.contributions)
     assert "Leave this sample out" not in str(view.contributions)  # it is not in the model
+
+
+def test_many_left_out_samples_are_a_stored_set_and_the_link_stays_short(services, iris_token):
+    # 100 of iris's 150 flowers left out: 100 `ex=` entries would make a long link; the
+    # stored set keeps it short and gives exactly the fit of the same labels listed inline.
+    labels = tuple(f"F{i:03d}" for i in range(100))
+    state = vm.with_exclusions(services, ViewState(dataset=iris_token), labels)
+    assert state.excluded == () and state.excluded_set is not None
+    assert len(to_query(state)) < 400
+    assert vm.with_exclusions(services, ViewState(dataset=iris_token), reversed(labels)) == state  # same set, same code
+    by_set = vm.build_view(services, state, wait=True)
+    inline = vm.build_view(services, ViewState(dataset=iris_token, excluded=labels), wait=True)
+    assert by_set.variance_rows == inline.variance_rows and by_set.errors == ()
+    assert by_set.provenance["Samples used"] == "50 of 150"
+    assert services.compute.stats()["fits"] == 1  # one recipe, one fit
+    from webapp.ui.callbacks import _FIRST_OUTPUTS, _first_outputs
+    from webapp.ui.components import MAX_EXCLUDED_CHIPS
+
+    chips = _first_outputs(by_set)[[o.component_id for o in _FIRST_OUTPUTS].index("excluded-list")]
+    assert len(chips) == MAX_EXCLUDED_CHIPS + 1 and "100 in all" in str(chips[-1])
+    # Putting one back keeps a set; down to a few, the labels return to the link itself.
+    fewer = vm.with_exclusions(services, state, labels[1:])
+    assert fewer.excluded_set not in (None, state.excluded_set)
+    few = vm.with_exclusions(services, state, labels[:3])
+    assert few.excluded == labels[:3] and few.excluded_set is None
+
+
+def test_an_unknown_or_foreign_sample_set_is_a_notice(services, iris_token):
+    other = services.store.add_bytes(iris_frame().to_csv(index=False).encode(), "copy.csv").token
+    foreign = services.store.save_sample_set(other, [f"F{i:03d}" for i in range(60)])
+    for code in (foreign, "U" * 24):
+        view = vm.build_view(services, ViewState(dataset=iris_token, excluded_set=code), wait=True)
+        assert view.provenance["Samples used"] == "150 of 150"
+        assert any("left-out samples named in this link is not known here" in n for n in view.notices)
+
+
+def test_sample_sets_are_deleted_with_their_dataset(services):
+    token = services.store.add_bytes(iris_frame().to_csv(index=False).encode(), "temp.csv").token
+    code = services.store.save_sample_set(token, ["F001", "F002"])
+    assert services.store.sample_set(token, code) == ("F001", "F002")
+    services.store.delete_dataset(token)
+    assert services.store.sample_set(token, code) is None

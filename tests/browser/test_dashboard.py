@@ -263,3 +263,19 @@ def test_a_new_batch_is_scored_against_the_open_model(dash_duo, app, iris_csv, t
     _wait_for(lambda: "batch=&" in dash_duo.driver.current_url)
     _wait_for(lambda: "New batch" not in _legend_text(dash_duo))
     assert dash_duo.find_element("#batch-panel").text == ""
+
+
+def test_leaving_out_many_samples_keeps_the_link_short(dash_duo, app, iris_csv):
+    _open_with_iris(dash_duo, app, iris_csv)
+    _emit(dash_duo, "scores-graph", "plotly_selected", [f"F{i:03d}" for i in range(45)])
+    dash_duo.find_element("#exclude-selected").click()
+    dash_duo.wait_for_contains_text("#provenance", "105 of 150", timeout=TIMEOUT)
+    url = dash_duo.driver.current_url
+    assert "exset=" in url and "ex=&" in url and len(url) < 600  # 45 labels, not spelled out
+    dash_duo.wait_for_contains_text("#excluded-list", "45 in all", timeout=TIMEOUT)
+
+    dash_duo.find_element("#excluded-list button[title='Put F001 back into the model']").click()
+    dash_duo.wait_for_contains_text("#provenance", "106 of 150", timeout=TIMEOUT)
+    dash_duo.find_element("#restore-all").click()
+    dash_duo.wait_for_contains_text("#provenance", "150 of 150", timeout=TIMEOUT)
+    assert "exset=&" in dash_duo.driver.current_url

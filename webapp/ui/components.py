@@ -69,17 +69,25 @@ def transform_chips(transforms) -> list:
     ]
 
 
+# Each chip is several browser components; beyond this many the list says how many more.
+MAX_EXCLUDED_CHIPS = 40
+
+
 def excluded_chips(labels) -> list:
     if not labels:
         return [html.Li("None: every sample is in the model.", className="chip-empty")]
-    return [
+    chips = [
         html.Li(className="chip", children=[
             html.Span(label),
             html.Button("↺", id={"type": "restore-sample", "index": label}, n_clicks=0,
                         className="chip-remove", title=f"Put {label} back into the model"),
         ])
-        for label in labels
+        for label in labels[:MAX_EXCLUDED_CHIPS]
     ]
+    if len(labels) > MAX_EXCLUDED_CHIPS:
+        chips.append(html.Li(f"… and {len(labels) - MAX_EXCLUDED_CHIPS} more ({len(labels)} in all); "
+                             "“Restore all” puts every one back.", className="chip-empty"))
+    return chips
 
 
 def variance_table(rows: list[dict]) -> html.Table:

@@ -146,6 +146,7 @@ def resolve(services, state: ViewState) -> Resolved:
     record = services.store.dataset(state.dataset)
     if record is None:
         raise DatasetNotFound(state.dataset)
+    state, _ = _expanded(services, state)
     return _resolve_table(services, record, services.compute.table(record), state, wait=True)
 
 
@@ -155,6 +156,38 @@ def _resolve_table(services, record, table, state: ViewState, *, wait: bool) -> 
         return Resolved(record, table, recipe, services.compute.fitted(record, recipe), notices)
     fitted, complete = services.compute.first_fit(record, recipe)
     return Resolved(record, table, recipe, fitted, notices, complete)
+
+
+# More left-out samples than this are kept as a stored sample set (``exset``) instead of
+# ``ex`` entries, so a link stays well below the request-line limits of servers and proxies.
+INLINE_EXCLUSIONS = 40
+
+
+def excluded_labels(services, state: ViewState) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """Every sample a state leaves out (its ``ex`` labels and its stored set), and notices."""
+    if state.excluded_set is None:
+        return state.excluded, ()
+    stored = services.store.sample_set(state.dataset, state.excluded_set) if state.dataset else None
+    if stored is None:
+        return state.excluded, ("The list of left-out samples named in this link is not known here, "
+                                "so those samples are in the model.",)
+    return tuple(dict.fromkeys((*state.excluded, *stored))), ()
+
+
+def with_exclusions(services, state: ViewState, labels) -> ViewState:
+    """``state`` leaving out exactly ``labels``: in the link when few, else as a stored sample set."""
+    labels = tuple(dict.fromkeys(labels))
+    if len(labels) <= INLINE_EXCLUSIONS or state.dataset is None:
+        return state.replace(excluded=labels, excluded_set=None)
+    return state.replace(excluded=(), excluded_set=services.store.save_sample_set(state.dataset, labels))
+
+
+def _expanded(services, state: ViewState) -> tuple[ViewState, tuple[str, ...]]:
+    """The state with its stored sample set spelled out in ``excluded`` (for the recipe and the page)."""
+    labels, notices = excluded_labels(services, state)
+    if state.excluded_set is None:
+        return state, notices
+    return state.replace(excluded=labels, excluded_set=None), notices
 
 
 def parallel_analysis_done(services, state: ViewState) -> bool:
@@ -169,6 +202,7 @@ def parallel_analysis_done(services, state: ViewState) -> bool:
     record = services.store.dataset(state.dataset)
     if record is None:
         return True
+    state, _ = _expanded(services, state)
     try:
         recipe, _ = recipe_for(state, services.compute.table(record))
     except OrdinateError:
@@ -220,6 +254,8 @@ def build_view(services, state: ViewState, parse_notices=(), *, wait: bool = Fal
     record = services.store.dataset(state.dataset)
     if record is None:
         raise DatasetNotFound(state.dataset)
+    state, exclusion_notices = _expanded(services, state)
+    parse_notices = (*parse_notices, *exclusion_notices)
     try:
         table = services.compute.table(record)
     except OrdinateError as error:
