@@ -306,8 +306,14 @@ def test_a_batch_that_cannot_be_scored_is_a_notice_not_a_failure(services, iris_
     view = vm.build_view(services, ViewState(dataset=iris_token, batch=_batch_token(services, batch)), wait=True)
     assert view.errors == () and view.batch is None
     assert any("cannot be scored" in n and "petal width (cm)" in n for n in view.notices)
+    # The panel says why and still offers to stop scoring it.
+    from webapp.ui.components import batch_panel
+
+    panel = str(batch_panel(view.batch, 0.95, view.batch_problem))
+    assert "petal width (cm)" in panel and "Stop scoring this batch" in panel
     gone = vm.build_view(services, ViewState(dataset=iris_token, batch="Q" * 20), wait=True)
     assert gone.batch is None and any("not known here" in n for n in gone.notices)
+    assert "not known here" in gone.batch_problem
 
 
 def test_a_picked_new_batch_sample_shows_its_contributions(services, iris_token):

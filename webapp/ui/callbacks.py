@@ -279,7 +279,7 @@ def _rest_outputs(view: "vm.View") -> list:
         view.diagnostics_figure,
         flagged_table(view.flagged),
         view.contributions,
-        batch_panel(view.batch, view.state.confidence),
+        batch_panel(view.batch, view.state.confidence, view.batch_problem),
         view.loadings_figure,
         view.circle_figure,
         provenance_block(view.provenance),

@@ -148,10 +148,22 @@ def flagged_table(rows: list[dict], *, heading: str | None = None,
     ]
 
 
-def batch_panel(batch, confidence: float):
-    """A new batch scored against the model: counts, cautions, the samples beyond a limit."""
+def batch_panel(batch, confidence: float, problem: str | None = None):
+    """A new batch scored against the model: counts, cautions, the samples beyond a limit.
+
+    ``problem``: why the batch named in the link could not be scored; the panel
+    then says so and still offers to stop scoring it.
+    """
     if batch is None:
-        return None
+        if problem is None:
+            return None
+        return html.Div([
+            html.Div(className="batch-head", children=[
+                html.H3("New batch"),
+                html.Button("Stop scoring this batch", id=BATCH_REMOVE, n_clicks=0, className="small-button"),
+            ]),
+            html.P(problem, className="notice notice-error"),
+        ])
     rows, n = batch.rows(), len(batch.labels)
     level = f"{confidence * 100:g} %"
     p = batch.projection

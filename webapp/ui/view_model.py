@@ -47,6 +47,7 @@ HOVER_VARIABLES = 6
 MAX_BIPLOT_ARROWS = 20
 MAX_CIRCLE_ARROWS = 30
 MAX_TABLE_COMPONENTS = 20
+UNKNOWN_BATCH = "The new batch named in this link is not known here (it may have been deleted); it is not shown."
 
 
 class DatasetNotFound(Exception):
@@ -90,6 +91,8 @@ class View:
     flagged = property(lambda self: self.panels.get("flagged", list))
     contributions = property(lambda self: self.panels.get("contributions", lambda: None))
     batch = property(lambda self: self.panels.get("batch", lambda: None))
+    # Why the batch named in the link could not be scored (None when it was, or when there is none).
+    batch_problem = property(lambda self: self.panels.get("batch_problem", lambda: None))
     loadings_figure = property(lambda self: self.panels.get("loadings", go.Figure))
     circle_figure = property(lambda self: self.panels.get("circle", go.Figure))
 
@@ -281,8 +284,7 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
     groups, colour_column = _groups(state, table, fitted)
     batch_record = services.store.dataset(state.batch) if state.batch else None
     if state.batch and batch_record is None:
-        notices.append("The new batch named in this link is not known here (it may have been deleted); "
-                       "it is not shown.")
+        notices.append(UNKNOWN_BATCH)
     keys = _panel_keys(state, resolved, diagnostics, colour_column, pc_x, pc_y, loading_pc,
                        (batch_record.content_hash, batch_record.display_name) if batch_record else None)
     batch, batch_notices = (None, ()) if batch_record is None else services.compute.drawing(
@@ -329,6 +331,8 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
                 batch_t2_limit=None if batch is None else batch.projection.t2_limit,
             )),
             "batch": lambda: batch,
+            "batch_problem": lambda: (None if batch is not None or not state.batch
+                                      else UNKNOWN_BATCH if batch_record is None else batch_notices[0]),
             "flagged": lambda: draw(keys["flagged"], lambda: flagged_samples(
                 fitted.prepared.sample_labels, diagnostics.t2, diagnostics.q, diagnostics.t2_limit,
                 diagnostics.q_limit)),
