@@ -53,8 +53,8 @@ def main() -> None:
         _shot(browser, base + to_query(demo), "overview-1920.png", (1920, 1080))
         _shot(browser, base + to_query(demo), "full-page-1280.png", (1280, 800), full_page=True)
         picked = demo.replace(picked="OD-24-0106")
-        _shot(browser, base + to_query(picked), "diagnostics-picked.png", (1280, 800), element=".diagnostics-card")
-        _shot(browser, base + to_query(demo), "variance.png", (1280, 800), element=".variance-card")
+        _shot(browser, base + to_query(picked), "diagnostics-picked.png", (1280, 1400), element=".diagnostics-card")
+        _shot(browser, base + to_query(demo), "variance.png", (1280, 1400), element=".variance-card")
         new_batches = ROOT / "demo_data" / "synthetic_oat_dessert_new_batches.csv"
         batch = services.store.add_bytes(new_batches.read_bytes(), new_batches.name).token
         _shot(browser, base + to_query(demo.replace(batch=batch)), "new-batch.png", (1280, 1400),
