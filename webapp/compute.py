@@ -157,10 +157,18 @@ class ComputeLayer:
         return value
 
     def forget(self, content_hash: str) -> None:
-        """Drop every cached result of a dataset's bytes (after its deletion)."""
+        """Drop every cached result of a dataset's bytes (after its deletion).
+
+        A result being computed or written (in any process) holds its key's lock
+        until it is on disk; waiting for those locks first keeps such a result
+        from landing after the deletion.
+        """
         marker = f"/{content_hash}"
+        for name in [k for k in self.cache.iterkeys() if isinstance(k, str) and k.startswith("lock/") and marker in k]:
+            with diskcache.Lock(self.cache, name, expire=LOCK_SECONDS):
+                pass
         for key in list(self.cache.iterkeys()):
-            if isinstance(key, str) and marker in key:
+            if isinstance(key, str) and marker in key and not key.startswith("lock/"):
                 self.cache.delete(key)
         with self._memo_lock:
             for key in [k for k in self._memo if marker in k]:

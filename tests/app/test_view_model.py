@@ -365,3 +365,22 @@ def test_sample_sets_are_deleted_with_their_dataset(services):
     assert services.store.sample_set(token, code) == ("F001", "F002")
     services.store.delete_dataset(token)
     assert services.store.sample_set(token, code) is None
+
+
+def test_forgetting_a_dataset_waits_for_results_still_being_written(services, monkeypatch):
+    # Results reach the disk cache after the request has them; a deletion in that
+    # moment must not leave them behind (the write is slowed down here to show it).
+    from webapp.compute import ComputeLayer
+
+    write = ComputeLayer._write_and_release
+
+    def slow_write(self, key, value, lock):
+        time.sleep(0.3)
+        write(self, key, value, lock)
+
+    monkeypatch.setattr(ComputeLayer, "_write_and_release", slow_write)
+    record = services.store.add_bytes(iris_frame().to_csv(index=False).encode(), "gone.csv")
+    vm.build_view(services, ViewState(dataset=record.token), wait=True)
+    services.compute.forget(record.content_hash)
+    time.sleep(0.8)  # any write still under way would have landed by now
+    assert not [k for k in services.compute.cache.iterkeys() if isinstance(k, str) and record.content_hash in k]
