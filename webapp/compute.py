@@ -35,6 +35,7 @@ from pathlib import Path
 import diskcache
 
 from webapp.analysis import ENGINE_VERSION
+from webapp.analysis.errors import OrdinateError
 from webapp.analysis.ingest import Table, read_table
 from webapp.analysis.pipeline import (
     Diagnostics,
@@ -92,17 +93,23 @@ class ComputeLayer:
         return thread
 
     def _quiet_fit(self, record, recipe, key, parallel) -> None:
+        # A request that needs the fit reports any error itself; a view drawn from
+        # the PCA alone stops waiting (first_fit reports it complete).
         try:
             self.fitted(record, recipe) if parallel else self.pca_fit(record, recipe)
+        except OrdinateError as error:  # the data or recipe, not the program
+            log.info("Fitting dataset %s in the background: %s", record.token, error)
+            self._mark_failed(key)
         except Exception:
-            # A request that needs the fit reports the error itself; a view drawn
-            # from the PCA alone stops waiting (first_fit reports it complete).
             log.exception("Fitting dataset %s in the background failed", record.token)
-            with self._memo_lock:
-                self._failed.add(key)
+            self._mark_failed(key)
         finally:
             with self._memo_lock:
                 self._completing.pop(key, None)
+
+    def _mark_failed(self, key: str) -> None:
+        with self._memo_lock:
+            self._failed.add(key)
 
     def fitted(self, record: DatasetRecord, recipe: Recipe) -> FittedRecipe:
         """The complete fit, parallel analysis included (computed now if nobody has)."""
