@@ -38,9 +38,7 @@ from webapp.analysis import ENGINE_VERSION
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.ingest import Table, read_table
 from webapp.analysis.pipeline import (
-    Diagnostics,
     FittedRecipe,
-    diagnose,
     fit_recipe,
     parallel_advice,
     with_parallel_analysis,
@@ -72,8 +70,11 @@ class ComputeLayer:
         key = f"table/{ENGINE_VERSION}/{record.content_hash}"
         return self._cached(key, lambda: read_table(self.store.blob_path(record), filename=record.filename), "parses")
 
-    def fit_in_background(self, record: DatasetRecord, recipe: Recipe, *, parallel: bool = True) -> threading.Thread:
+    def fit_in_background(self, record: DatasetRecord, recipe: Recipe, *,
+                          parallel: bool = True) -> threading.Thread | None:
         """Start fitting now, unless this process is already at it; returns the thread doing the work.
+
+        None when this fit already failed in this process (it is not retried).
 
         ``parallel=False`` stops at the PCA (:meth:`pca_fit`): an upload starts
         that while the browser is still on its way to the new view. The complete
@@ -86,7 +87,7 @@ class ComputeLayer:
             if running is not None and running.is_alive():
                 return running
             if key in self._failed:
-                return threading.Thread()  # not started: the failure was logged when it happened
+                return None  # the failure was logged when it happened
             thread = threading.Thread(target=self._quiet_fit, args=(record, recipe, key, parallel), daemon=True)
             self._completing[key] = thread
         thread.start()
@@ -142,9 +143,6 @@ class ComputeLayer:
         """Whether parallel analysis is done (in any process), or failed in this one."""
         key = advice_key(record.content_hash, recipe)
         return key in self._failed or self._peek(key) is not None
-
-    def diagnostics(self, record: DatasetRecord, recipe: Recipe, components, confidence: float) -> Diagnostics:
-        return diagnose(self.fitted(record, recipe), components, confidence)
 
     def drawing(self, key: tuple, build):
         """A figure (or other derived, immutable value) built once per process for ``key``.

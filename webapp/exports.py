@@ -334,8 +334,7 @@ _BUILDERS = {
     "loadings": loadings_frame,
     "variance": variance_frame,
     "diagnostics": diagnostics_frame,
-    "batch": None,  # needs the store as well: see export_csv
-}
+}  # and "batch", which needs the store as well: see export_csv
 
 
 # --------------------------------------------------------------------------------------
@@ -356,7 +355,7 @@ def export_csv(services, state: ViewState, kind: str) -> tuple[str, str]:
     view model) for an unknown dataset, :class:`OrdinateError` when the view's
     recipe cannot be applied, ``ValueError`` for an unknown kind.
     """
-    if kind not in _BUILDERS:
+    if kind not in CSV_KINDS:
         raise ValueError(f"unknown export kind {kind!r}")
     resolved = _resolve(services, state)
     frame = batch_frame(services, resolved, state) if kind == "batch" else _BUILDERS[kind](resolved, state)

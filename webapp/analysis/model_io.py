@@ -55,6 +55,7 @@ class Projection:
     """New samples scored against a reference model."""
 
     sample_labels: tuple[str, ...]
+    matrix: np.ndarray  # the new samples after the model's transforms, centring and scaling
     scores: np.ndarray
     t2: np.ndarray
     q: np.ndarray
@@ -184,6 +185,7 @@ def project_table(model: ReferenceModel, table, confidence: float | None = None)
     labels = tuple(table.sample_labels())
     return Projection(
         sample_labels=labels,
+        matrix=matrix,
         scores=scores,
         t2=hotelling_t2(scores, model.eigenvalues),
         q=q,

@@ -32,7 +32,7 @@ from webapp.figures._points import (
     resolve_groups,
 )
 from webapp.figures.palette import NEGATIVE_COLOUR, POSITIVE_COLOUR, GroupStyle
-from webapp.figures.scores import DENSITY_THRESHOLD, _density_trace, _ring_trace
+from webapp.figures.scores import DENSITY_THRESHOLD, _density_trace, picked_ring
 from webapp.figures.text import count_text, escape_text, level_percent
 from webapp.figures.theme import MUTED_TEXT_COLOUR, TEXT_COLOUR, axis_style, base_layout, new_figure, style_for
 
@@ -78,6 +78,14 @@ def _float64(values, name: str, n: int | None = None) -> np.ndarray:
     return np.asarray(values, dtype=np.float64)
 
 
+def _checked(t2, q, labels, t2_limit, q_limit, as_array) -> tuple:
+    """T², Q (as ``as_array`` makes them), labels and both limits, checked alike for the table and the figure."""
+    t2_values = as_array(t2, "T² values")
+    n = t2_values.shape[0]
+    return (t2_values, as_array(q, "Q values", n), as_labels(labels, n),
+            _positive_limit(t2_limit, "T² limit", allow_zero=False), _positive_limit(q_limit, "Q limit", allow_zero=True))
+
+
 def _flags(t2: np.ndarray, q: np.ndarray, t2_limit: float, q_limit: float) -> tuple[np.ndarray, np.ndarray]:
     over_t2 = t2 > t2_limit
     # q_limit 0 means every component is kept and Q is zero: nothing to flag.
@@ -92,12 +100,7 @@ def flagged_samples(labels, t2, q, t2_limit: float, q_limit: float) -> list[dict
     max(T²/T²-limit, Q/Q-limit) (the Q term is left out when the Q limit is
     0), and rows are sorted by it, descending; ties keep the input order.
     """
-    t2_values = _float64(t2, "T² values")
-    n = t2_values.shape[0]
-    q_values = _float64(q, "Q values", n)
-    label_array = as_labels(labels, n)
-    t2_limit = _positive_limit(t2_limit, "T² limit", allow_zero=False)
-    q_limit = _positive_limit(q_limit, "Q limit", allow_zero=True)
+    t2_values, q_values, label_array, t2_limit, q_limit = _checked(t2, q, labels, t2_limit, q_limit, _float64)
     over_t2, over_q = _flags(t2_values, q_values, t2_limit, q_limit)
     ratio = t2_values / t2_limit
     if q_limit > 0:
@@ -148,12 +151,8 @@ def diagnostics_figure(
     Young & Mason 1992). The Q limit is the same for both.
     """
     style = style_for(presentation)
-    t2_values = as_float32(t2, "T² values")
+    t2_values, q_values, label_array, t2_limit, q_limit = _checked(t2, q, labels, t2_limit, q_limit, as_float32)
     n = t2_values.shape[0]
-    q_values = as_float32(q, "Q values", n)
-    label_array = as_labels(labels, n)
-    t2_limit = _positive_limit(t2_limit, "T² limit", allow_zero=False)
-    q_limit = _positive_limit(q_limit, "Q limit", allow_zero=True)
     level = level_percent(_check_confidence(confidence))
     names, present, styles = resolve_groups(groups, n, group_order)
     over_t2, over_q = _flags(t2_values.astype(np.float64), q_values.astype(np.float64), t2_limit, q_limit)
@@ -230,13 +229,7 @@ def diagnostics_figure(
         ))
     if batch is not None:
         traces.append(batch_trace(batch, style.marker_size, hover_lines, style.label_size))
-    if highlighted is not None:
-        ring = _ring_trace(t2_values, q_values, label_array, str(highlighted), style)
-        if ring is None and batch is not None:
-            ring = _ring_trace(as_float32(batch.x, "new batch T²"), as_float32(batch.y, "new batch Q"),
-                               as_labels(batch.labels, len(batch.labels)), str(highlighted), style)
-        if ring is not None:
-            traces.append(ring)
+    traces.extend(picked_ring(t2_values, q_values, label_array, highlighted, style, batch))
     fig.add_traces(traces)
     return fig
 

@@ -451,6 +451,7 @@ def scores_figure(
         dragmode="lasso" if not use_density else "zoom",
     )
 
+    axis_hover = [f"{template_literal(x_name)}: %{{x:.4g}}", f"{template_literal(y_name)}: %{{y:.4g}}"]
     traces: list = []
     if use_density:
         traces.append(_density_trace(xs, ys, style))
@@ -463,27 +464,30 @@ def scores_figure(
                 x=xs[index], y=ys[index], labels=label_array[index],
                 hover=[(c, v[index]) for c, v in hover],
                 name=group, legend_group=_legend_group(group), style=styles[group],
-                marker_size=style.marker_size,
-                hover_lines=[f"{template_literal(x_name)}: %{{x:.4g}}", f"{template_literal(y_name)}: %{{y:.4g}}"],
+                marker_size=style.marker_size, hover_lines=axis_hover,
                 show_text=label_text, text_size=style.label_size, webgl=webgl,
             ))
     traces.extend(_ellipse_traces(ellipses, ellipse_groups, styles, style))
     if batch is not None:
-        traces.append(batch_trace(batch, style.marker_size, [
-            f"{template_literal(x_name)}: %{{x:.4g}}", f"{template_literal(y_name)}: %{{y:.4g}}"], style.label_size))
-    if highlighted is not None:
-        ring = _ring_trace(xs, ys, label_array, str(highlighted), style)
-        if ring is None and batch is not None:
-            ring = _ring_trace(as_float32(batch.x, "new batch x"), as_float32(batch.y, "new batch y"),
-                               as_labels(batch.labels, len(batch.labels)), str(highlighted), style)
-        if ring is not None:
-            traces.append(ring)
+        traces.append(batch_trace(batch, style.marker_size, axis_hover, style.label_size))
+    traces.extend(picked_ring(xs, ys, label_array, highlighted, style, batch))
     fig.add_traces(traces)
 
     if arrows is not None:
         fig.update_layout(annotations=list(fig.layout.annotations) + arrow_annotations(
             arrows.variables, arrows.dx, arrows.dy, style))
     return fig
+
+
+def picked_ring(x, y, labels, highlighted: str | None, style: Style, batch: BatchPoints | None = None) -> list:
+    """A ring around the picked sample: one of the plotted samples, or else of the new batch."""
+    if highlighted is None:
+        return []
+    ring = _ring_trace(x, y, labels, str(highlighted), style)
+    if ring is None and batch is not None:
+        ring = _ring_trace(as_float32(batch.x, "new batch x"), as_float32(batch.y, "new batch y"),
+                           as_labels(batch.labels, len(batch.labels)), str(highlighted), style)
+    return [] if ring is None else [ring]
 
 
 def _ring_trace(x, y, labels, highlighted: str, style: Style) -> go.Scatter | None:

@@ -361,14 +361,6 @@ def _search_if_changed(current: ViewState, new: ViewState):
 # --- actions: exclusions, transforms, picking, upload ------------------------------------------
 
 
-def _left_out(services, state: ViewState) -> tuple[str, ...]:
-    return vm.excluded_labels(services, state)[0]
-
-
-def _leaving_out(services, state: ViewState, labels) -> ViewState:
-    return vm.with_exclusions(services, state, labels)
-
-
 def _register_actions(app, services) -> None:
     url_out = Output(L.URL, "search", allow_duplicate=True)
 
@@ -380,8 +372,8 @@ def _register_actions(app, services) -> None:
         if not labels:
             raise PreventUpdate
         picked = None if current.picked in labels else current.picked
-        return _search_if_changed(current, _leaving_out(services, current, (*_left_out(services, current), *labels))
-                                  .replace(picked=picked))
+        left_out = (*vm.excluded_labels(services, current)[0], *labels)
+        return _search_if_changed(current, vm.with_exclusions(services, current, left_out).replace(picked=picked))
 
     @app.callback(url_out, Input({"type": "restore-sample", "index": ALL}, "n_clicks"),
                   Input(L.RESTORE_ALL, "n_clicks"), State(L.URL, "search"), prevent_initial_call=True)
@@ -392,8 +384,8 @@ def _register_actions(app, services) -> None:
             raise PreventUpdate
         if trigger == L.RESTORE_ALL:
             return _search_if_changed(current, current.replace(excluded=(), excluded_set=None))
-        remaining = tuple(label for label in _left_out(services, current) if label != trigger["index"])
-        return _search_if_changed(current, _leaving_out(services, current, remaining))
+        remaining = [label for label in vm.excluded_labels(services, current)[0] if label != trigger["index"]]
+        return _search_if_changed(current, vm.with_exclusions(services, current, remaining))
 
     @app.callback(url_out, Input({"type": "exclude-picked", "index": ALL}, "n_clicks"), State(L.URL, "search"),
                   prevent_initial_call=True)
@@ -401,8 +393,8 @@ def _register_actions(app, services) -> None:
         current, _ = parse_query(search)
         if not any(clicks or ()) or current.picked is None:
             raise PreventUpdate
-        labels = (*_left_out(services, current), current.picked)
-        return _search_if_changed(current, _leaving_out(services, current, labels).replace(picked=None))
+        left_out = (*vm.excluded_labels(services, current)[0], current.picked)
+        return _search_if_changed(current, vm.with_exclusions(services, current, left_out).replace(picked=None))
 
     @app.callback(url_out, Input(L.TRANSFORM_APPLY, "n_clicks"), State(L.TRANSFORM_KIND, "value"),
                   State(L.TRANSFORM_VARIABLE, "value"), State(L.URL, "search"), prevent_initial_call=True)

@@ -131,8 +131,12 @@ class BatchScores:
     """A new batch scored against the view's model (at the view's K and confidence)."""
 
     name: str
-    matrix: np.ndarray  # the batch after the model's own preprocessing
     projection: Projection
+
+    @property
+    def matrix(self) -> np.ndarray:
+        """The batch after the model's own preprocessing (scores on any component are ``matrix @ loadings``)."""
+        return self.projection.matrix
 
     @property
     def labels(self) -> tuple[str, ...]:
@@ -280,7 +284,10 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
     pc_x, pc_y, loading_pc = (_clamp_pc(v, k_max, name, notices) for v, name in (
         (state.pc_x, "x axis"), (state.pc_y, "y axis"), (state.loading_pc, "loadings")))
     components = components_choice(state, fitted, notices)
-    diagnostics = diagnose(fitted, components, state.confidence)
+    # Both view callbacks build the view: T² and Q at K are computed once per worker.
+    fit = fit_key(resolved.record.content_hash, resolved.recipe)
+    diagnostics = services.compute.drawing(("diagnose", fit, resolved.complete, components, state.confidence),
+                                           lambda: diagnose(fitted, components, state.confidence))
     groups, colour_column = _groups(state, table, fitted)
     batch_record = services.store.dataset(state.batch) if state.batch else None
     if state.batch and batch_record is None:
@@ -502,11 +509,10 @@ def score_batch(services, record, fitted, diagnostics) -> tuple[BatchScores | No
         table = services.compute.table(record)
         model = model_from_analysis(Analysis(fitted, diagnostics))
         projection = project_table(model, table, diagnostics.confidence)
-        matrix, _ = model.preprocessor.transform_frame(table.frame)
     except OrdinateError as error:
         return None, (f"The new batch “{name}” cannot be scored against this model: {error}",)
     notices = tuple(f"New batch “{name}”: {warning}" for warning in (*table.warnings, *projection.warnings))
-    return BatchScores(name, matrix, projection), notices
+    return BatchScores(name, projection), notices
 
 
 def batch_legend(batch: BatchScores) -> str:
