@@ -231,10 +231,10 @@ def test_a_redraw_sends_only_the_panels_that_changed(services, iris_token):
 
     from webapp.ui import callbacks as cb
 
-    def send(state, shown, first):
+    def send(state, shown, first, always=cb._ALWAYS_SENT_ON_NEW_ADDRESS):
         outputs, fingerprints, _ = cb._draw(services, "?" + to_query(state), first=first)
         specs = cb._FIRST_OUTPUTS if first else cb._REST_OUTPUTS
-        return cb._only_changed(specs, outputs, fingerprints, shown)
+        return cb._only_changed(specs, outputs, fingerprints, shown, always=always if first else frozenset())
 
     def sent_ids(values, first):
         specs = cb._FIRST_OUTPUTS if first else cb._REST_OUTPUTS
@@ -247,6 +247,8 @@ def test_a_redraw_sends_only_the_panels_that_changed(services, iris_token):
     assert no_update not in first + rest  # a new page gets everything
     again, _ = send(state, shown_first, True)
     assert sent_ids(again, True) == {"notices.children"}  # also written by the upload callback
+    # The same address drawn again when parallel analysis finishes: an upload's message stays.
+    assert sent_ids(send(state, shown_first, True, always=frozenset())[0], True) == set()
     changed, _ = send(state.replace(sigma_levels=(1.0, 3.0)), shown_first, True)
     assert sent_ids(changed, True) == {"notices.children", "sigma-levels.value", "scores-graph.figure"}
     rest_after_k, _ = send(state.replace(components=3), shown_rest, False)

@@ -156,6 +156,7 @@ def test_link_reopens_identical_view_in_a_fresh_browser(dash_duo, app, iris_csv)
 def test_bad_file_shows_a_message_and_the_server_keeps_serving(dash_duo, app, iris_csv, tmp_path):
     dash_duo.start_server(app)
     dash_duo.wait_for_element("#scores-graph .js-plotly-plot", timeout=TIMEOUT)
+    _wait_for_parallel_analysis(dash_duo.driver)  # the demo view is complete, as a person would see it
     bad = tmp_path / "photo.csv"
     bad.write_bytes(b"\x89PNG\r\n\x1a\n" + bytes(range(256)) * 4)
     _upload(dash_duo, bad)

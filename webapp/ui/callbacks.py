@@ -110,8 +110,10 @@ _REST_OUTPUTS = [
     Output(L.PROVENANCE, "children"),
 ]
 _VIEW_OUTPUTS = _FIRST_OUTPUTS + _REST_OUTPUTS
-# Also written by other callbacks, so what the page shows may differ from what was sent last.
-_ALWAYS_SENT = frozenset({(L.NOTICES, "children")})
+# Also written by other callbacks (an upload's error), so what the page shows may differ from
+# what was sent last: a new address always replaces it; a redraw of the same address (parallel
+# analysis finished) sends it only when it changed, so it does not wipe out such a message.
+_ALWAYS_SENT_ON_NEW_ADDRESS = frozenset({(L.NOTICES, "children")})
 _FIGURE_KEYS = {L.SCORES_GRAPH: "scores", L.VARIANCE_GRAPH: "variance", L.DIAGNOSTICS_GRAPH: "diagnostics",
                 L.LOADINGS_GRAPH: "loadings", L.CIRCLE_GRAPH: "circle"}
 
@@ -121,7 +123,8 @@ def _register_show_view(app, services) -> None:
                   Input(L.URL, "search"), Input(L.PARALLEL_DONE, "data"), State(L.SHOWN_FIRST, "data"))
     def show_view(search, _parallel_done, shown):
         outputs, fingerprints, complete = _draw(services, search, first=True)
-        sent, shown = _only_changed(_FIRST_OUTPUTS, outputs, fingerprints, shown)
+        always = _ALWAYS_SENT_ON_NEW_ADDRESS if ctx.triggered_id != L.PARALLEL_DONE else frozenset()
+        sent, shown = _only_changed(_FIRST_OUTPUTS, outputs, fingerprints, shown, always=always)
         # A new value every time, so the rest of the view always follows.
         return sent + [{**shown, "#search": search, "#drawn": time.time()}, complete]
 
@@ -186,8 +189,11 @@ def _fingerprint(spec, value, figure_keys: dict) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()[:24]
 
 
-def _only_changed(specs, values, fingerprints, shown) -> tuple[list, dict]:
-    """``values`` with ``no_update`` where the page already shows the same thing; the new fingerprints."""
+def _only_changed(specs, values, fingerprints, shown, *, always=frozenset()) -> tuple[list, dict]:
+    """``values`` with ``no_update`` where the page already shows the same thing; the new fingerprints.
+
+    Outputs named in ``always`` (as ``(component id, property)``) are sent regardless.
+    """
     shown = {k: v for k, v in (shown or {}).items() if not k.startswith("#")}
     sent = []
     for spec, value, fingerprint in zip(specs, values, fingerprints):
@@ -196,7 +202,7 @@ def _only_changed(specs, values, fingerprints, shown) -> tuple[list, dict]:
             sent.append(no_update)
             continue
         if fingerprint is not None and shown.get(name) == fingerprint \
-                and (spec.component_id, spec.component_property) not in _ALWAYS_SENT:
+                and (spec.component_id, spec.component_property) not in always:
             sent.append(no_update)
             continue
         sent.append(value)
