@@ -1,8 +1,14 @@
-"""Shared test configuration: headless Chromium for the browser tests."""
+"""Shared test configuration: headless Chromium for the browser tests; no time limits on property tests."""
 
 import shutil
 
+from hypothesis import settings
 from selenium.webdriver.chrome.options import Options
+
+# Property tests check values, not speed: on a busy two-core machine one example can
+# exceed Hypothesis's default 200 ms deadline and fail a run for no reason.
+settings.register_profile("ordinate", deadline=None)
+settings.load_profile("ordinate")
 
 CHROME_FLAGS = (
     "--no-sandbox",
