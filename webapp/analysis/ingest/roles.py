@@ -1,0 +1,82 @@
+"""Roles of columns: which one names the samples, which ones could group them."""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+
+_MAX_TEXT_GROUPS = 20
+_MAX_NUMERIC_GROUPS = 10
+_NAME_WORDS = re.compile(r"[A-Z]+(?![a-z])|[A-Z]?[a-z]+|\d+|#")
+_ID_WORDS = frozenset(
+    {"id", "ids", "sample", "samples", "name", "batch", "label", "lot", "code", "run",
+     "specimen", "no", "nr", "number", "num", "#", "index", "idx", "identifier", "tag"}
+)
+_ID_LAST_WORDS = frozenset({"id", "no", "nr", "number", "num", "#", "index", "idx", "identifier"})
+_ID_WHOLE_NAMES = frozenset({"sample", "run", "batch", "lot", "specimen", "label", "code"})
+
+
+def _name_words(name: str) -> list[str]:
+    return [word.lower() for word in _NAME_WORDS.findall(name)]
+
+
+def find_id_column(frame: pd.DataFrame, numeric: Sequence[str], text_columns: Sequence[str]) -> str | None:
+    unique_text = [name for name in text_columns if _is_complete_and_unique(frame[name])]
+    if unique_text:
+        preferred = [name for name in unique_text if _ID_WORDS.intersection(_name_words(name))]
+        return (preferred or unique_text)[0]
+    for name in numeric:
+        words = _name_words(name)
+        says_identifier = bool(words) and (words[-1] in _ID_LAST_WORDS or " ".join(words) in _ID_WHOLE_NAMES)
+        if says_identifier and _is_integer_valued(frame[name]) and _is_complete_and_unique(frame[name]):
+            return name
+    return None
+
+
+def _is_complete_and_unique(series: pd.Series) -> bool:
+    return bool(series.notna().all() and series.is_unique)
+
+
+def _is_integer_valued(series: pd.Series) -> bool:
+    values = series.to_numpy(dtype=np.float64)
+    head = values[:64]
+    if not _all_whole_numbers(head[~np.isnan(head)]):  # most measurement columns fail here, cheaply
+        return False
+    values = values[~np.isnan(values)]
+    return values.size > 0 and _all_whole_numbers(values)
+
+
+def _all_whole_numbers(values: np.ndarray) -> bool:
+    return bool(np.all(values == np.round(values)) and np.all(np.abs(values) < 2**53))
+
+
+def integers_as_text(series: pd.Series) -> pd.Series:
+    return pd.Series(series.to_numpy(dtype=np.int64).astype(str), dtype="str", copy=False)
+
+
+def find_group_columns(
+    frame: pd.DataFrame, numeric: Sequence[str], text_columns: Sequence[str], id_column: str | None
+) -> tuple[str, ...]:
+    groups = []
+    for name in frame.columns:
+        if name == id_column:
+            continue
+        if name in text_columns and _has_few_repeated_values(frame[name], _MAX_TEXT_GROUPS):
+            groups.append(name)
+        elif (
+            name in numeric
+            and _is_integer_valued(frame[name])
+            and _has_few_repeated_values(frame[name], _MAX_NUMERIC_GROUPS)
+        ):
+            groups.append(name)
+    return tuple(groups)
+
+
+def _has_few_repeated_values(series: pd.Series, cap: int) -> bool:
+    """Between 2 and min(cap, max(2, n_filled // 2)) distinct values, at least one of them repeated."""
+    n_filled = int(series.notna().sum())
+    n_distinct = series.nunique()
+    return 2 <= n_distinct <= min(cap, max(2, n_filled // 2)) and n_distinct < n_filled
