@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import hashlib
 import logging
+import re
 import threading
 from collections import OrderedDict
 from pathlib import Path
@@ -44,12 +45,16 @@ from webapp.analysis.pipeline import (
     with_parallel_analysis,
 )
 from webapp.analysis.recipe import Recipe
+from webapp.file_lock import FileLock
 from webapp.storage import DataStore, DatasetRecord
 
 DEFAULT_CACHE_BYTES = 8 * 2**30
 MEMO_ENTRIES = 6  # a table, its fit and advice, and those of the view before
 DRAWING_MEMO_ENTRIES = 32
+# A live holder still computing after this long is presumed stuck: the waiter computes
+# the result itself. A holder that died releases its lock at once (see webapp.file_lock).
 LOCK_SECONDS = 900
+LOCK_DIR = "locks"
 
 log = logging.getLogger("ordinate")
 
@@ -58,6 +63,8 @@ class ComputeLayer:
     def __init__(self, store: DataStore, cache_dir: str | Path, *, size_limit: int = DEFAULT_CACHE_BYTES):
         self.store = store
         self.cache = diskcache.Cache(str(cache_dir), size_limit=size_limit, eviction_policy="least-recently-used")
+        self.lock_dir = Path(cache_dir) / LOCK_DIR
+        self.lock_dir.mkdir(parents=True, exist_ok=True)
         self._memo: OrderedDict[str, object] = OrderedDict()
         self._memo_lock = threading.Lock()
         self._drawings: OrderedDict[tuple, object] = OrderedDict()
@@ -169,15 +176,21 @@ class ComputeLayer:
         from landing after the deletion.
         """
         marker = f"/{content_hash}"
-        for name in [k for k in self.cache.iterkeys() if isinstance(k, str) and k.startswith("lock/") and marker in k]:
-            with diskcache.Lock(self.cache, name, expire=LOCK_SECONDS):
-                pass
+        for path in self.lock_dir.glob(f"*{content_hash}*.lock"):
+            lock = FileLock(path)
+            if lock.acquire(timeout=LOCK_SECONDS):
+                lock.release()
+        # Also drops "lock/..." rows that versions before file locks left in the cache.
         for key in list(self.cache.iterkeys()):
-            if isinstance(key, str) and marker in key and not key.startswith("lock/"):
+            if isinstance(key, str) and marker in key:
                 self.cache.delete(key)
         with self._memo_lock:
             for key in [k for k in self._memo if marker in k]:
                 del self._memo[key]
+
+    def result_lock(self, key: str) -> FileLock:
+        """The lock that lets one thread in one process compute the result under ``key``."""
+        return FileLock(self.lock_dir / f"{_LOCK_NAME_UNSAFE.sub('_', key)}.lock")
 
     def stats(self) -> dict[str, int]:
         return {name: int(self.cache.get(f"stats/{name}", 0)) for name in ("fits", "parses", "parallel")}
@@ -199,9 +212,8 @@ class ComputeLayer:
         value = self.cache.get(key)
         if value is None:
             # One computation per key across threads and worker processes: the
-            # others wait for it (the lock expires if its holder dies).
-            lock = diskcache.Lock(self.cache, f"lock/{key}", expire=LOCK_SECONDS)
-            lock.acquire()
+            # others wait for it (a dead holder's lock is free at once).
+            lock = self._wait_for_lock(key)
             try:
                 value = self.cache.get(key)
                 if value is None:
@@ -222,6 +234,16 @@ class ComputeLayer:
         self._remember(key, value)
         return value
 
+    def _wait_for_lock(self, key: str) -> FileLock | None:
+        lock = self.result_lock(key)
+        if not lock.acquire(timeout=LOCK_SECONDS):
+            log.warning("Computing %s without its lock: the holder has been at it for %d s", key, LOCK_SECONDS)
+            return None
+        if lock.taken_over_from:
+            log.info("Took over the lock of %s from process %s, which ended while holding it",
+                     key, lock.taken_over_from)
+        return lock
+
     def _remember(self, key: str, value) -> None:
         with self._memo_lock:
             self._memo[key] = value
@@ -229,14 +251,15 @@ class ComputeLayer:
             while len(self._memo) > MEMO_ENTRIES:
                 self._memo.popitem(last=False)
 
-    def _write_and_release(self, key: str, value, lock: diskcache.Lock) -> None:
+    def _write_and_release(self, key: str, value, lock: FileLock | None) -> None:
         # Not a daemon thread: a worker that is shutting down finishes the write first.
         try:
             self.cache.set(key, value)
         except Exception:  # e.g. a full disk: other processes will compute it again
             log.exception("Could not store %s in the result cache", key)
         finally:
-            lock.release()
+            if lock is not None:
+                lock.release()
 
 
 def fit_key(content_hash: str, recipe: Recipe) -> str:
@@ -245,6 +268,9 @@ def fit_key(content_hash: str, recipe: Recipe) -> str:
 
 def advice_key(content_hash: str, recipe: Recipe) -> str:
     return f"advice/{ENGINE_VERSION}/{content_hash}/{_recipe_digest(recipe)}"
+
+
+_LOCK_NAME_UNSAFE = re.compile(r"[^A-Za-z0-9._-]")
 
 
 def _recipe_digest(recipe: Recipe) -> str:

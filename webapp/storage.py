@@ -96,12 +96,12 @@ class DataStore:
 
     def add_bytes(self, data: bytes, filename: str, *, title: str = "") -> DatasetRecord:
         content_hash = hashlib.sha256(data).hexdigest()
-        target = self._blob_path(content_hash)
-        if not target.exists():
-            with self._temporary_file() as (handle, temp_path):
-                handle.write(data)
-            os.replace(temp_path, target)
-        return self._register(content_hash, filename, len(data), title)
+        with self.index.transact():
+            if not self._blob_path(content_hash).exists():
+                with self._temporary_file() as (handle, temp_path):
+                    handle.write(data)
+                self._place_blob(temp_path, content_hash)
+            return self._register(content_hash, filename, len(data), title)
 
     def add_stream(self, stream: BinaryIO, filename: str, *, limit_bytes: int, title: str = "") -> DatasetRecord:
         """Copy a request body to disk in chunks, hashing as it goes.
@@ -120,12 +120,19 @@ class DataStore:
                 digest.update(chunk)
                 handle.write(chunk)
         content_hash = digest.hexdigest()
+        with self.index.transact():
+            self._place_blob(temp_path, content_hash)
+            return self._register(content_hash, filename, size, title)
+
+    def _place_blob(self, temp_path: str, content_hash: str) -> None:
+        # Called inside an index transaction, as is the removal of a blob nobody uses:
+        # a deletion of the same bytes can then never remove the file between its
+        # placing and its registration.
         target = self._blob_path(content_hash)
         if target.exists():
             os.unlink(temp_path)
         else:
             os.replace(temp_path, target)
-        return self._register(content_hash, filename, size, title)
 
     def _register(self, content_hash: str, filename: str, size: int, title: str) -> DatasetRecord:
         record = DatasetRecord(new_token(), content_hash, _clean_filename(filename), size, time.time(),
@@ -228,8 +235,7 @@ class DataStore:
                 self.index.set(("blob-users", record.content_hash), users)
             else:
                 self.index.delete(("blob-users", record.content_hash))
-        if users <= 0:
-            self._blob_path(record.content_hash).unlink(missing_ok=True)
+                self._blob_path(record.content_hash).unlink(missing_ok=True)
         return True
 
     # --- reading ------------------------------------------------------------
