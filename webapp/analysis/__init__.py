@@ -6,6 +6,6 @@ the cached compute layer and the tests share one engine.
 
 from webapp.analysis.errors import OrdinateError
 
-ENGINE_VERSION = "1"
+ENGINE_VERSION = "2"
 
 __all__ = ["ENGINE_VERSION", "OrdinateError"]

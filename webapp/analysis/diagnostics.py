@@ -45,8 +45,20 @@ from webapp.analysis.diagnostic_checks import (  # noqa: F401  (ellipses.py uses
     _check_loadings,
     _nonzero_mask,
 )
-from webapp.analysis.hotelling import count_nonzero_eigenvalues, hotelling_t2, t2_limit, t2_limit_beta
-from webapp.analysis.q_residual import q_limit, q_limit_box, q_limit_from_moments, q_residuals
+from webapp.analysis.hotelling import (
+    count_nonzero_eigenvalues,
+    hotelling_t2,
+    model_t2_limit,
+    t2_limit,
+    t2_limit_beta,
+)
+from webapp.analysis.q_residual import (
+    model_q_limit,
+    q_limit,
+    q_limit_box,
+    q_limit_from_moments,
+    q_residuals,
+)
 
 __all__ = [
     "ZERO_EIGENVALUE_RTOL",
@@ -54,10 +66,12 @@ __all__ = [
     "hotelling_t2",
     "t2_limit",
     "t2_limit_beta",
+    "model_t2_limit",
     "q_residuals",
     "q_limit",
     "q_limit_from_moments",
     "q_limit_box",
+    "model_q_limit",
     "t2_contributions",
     "q_residual_row",
     "q_contributions",

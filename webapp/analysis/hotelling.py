@@ -152,3 +152,19 @@ def _check_t2_arguments(
             f"samples; the model has {n}. Use fewer components or more samples."
         )
     return n, k, conf
+
+
+def model_t2_limit(
+    n_samples: int, eigenvalues, confidence: float, *, new_samples: bool = False, rtol: float = ZERO_EIGENVALUE_RTOL
+) -> float:
+    """T² limit for the components that :func:`hotelling_t2` actually sums over.
+
+    A kept component whose eigenvalue is numerically zero is left out of T²,
+    so it must be left out of the limit's k too, or the limit comes out too
+    high (:func:`count_nonzero_eigenvalues`). No limit exists when that count
+    reaches n (or is zero): infinity is returned, so nothing is flagged.
+    """
+    k = count_nonzero_eigenvalues(eigenvalues, rtol=rtol)
+    if k == 0 or k >= n_samples:
+        return float("inf")
+    return t2_limit(n_samples, k, confidence, new_samples=new_samples)

@@ -10,14 +10,13 @@ The schema is documented in docs/model-format.md; ``schema`` and
 from __future__ import annotations
 
 import json
-import math
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
 from webapp.analysis import ENGINE_VERSION
-from webapp.analysis.diagnostics import hotelling_t2, q_limit, q_limit_box, t2_limit
+from webapp.analysis.diagnostics import hotelling_t2, model_q_limit, model_t2_limit
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.pipeline import Analysis, residual_moments
 from webapp.analysis.recipe import Preprocessor, Recipe
@@ -189,7 +188,7 @@ def project_table(model: ReferenceModel, table, confidence: float | None = None)
         scores=scores,
         t2=hotelling_t2(scores, model.eigenvalues),
         q=q,
-        t2_limit=t2_limit(model.n_samples, model.components, confidence, new_samples=True),
+        t2_limit=model_t2_limit(model.n_samples, model.eigenvalues, confidence, new_samples=True),
         q_limit=_q_limit_for(model, confidence),
         filled_cells=filled,
         extra_columns=extra,
@@ -220,12 +219,13 @@ def projection_report(model: ReferenceModel, projection: Projection) -> dict:
 
 
 def _q_limit_for(model: ReferenceModel, confidence: float) -> float:
-    if math.isclose(confidence, model.confidence):
-        return model.q_limit
-    if model.residual_eigenvalues is not None:
-        return q_limit(model.residual_eigenvalues, confidence)
-    theta1, theta2 = model.residual_theta
-    return q_limit_box(theta1, theta2, confidence)
+    limit, _ = model_q_limit(
+        confidence,
+        total_variance=model.total_variance,
+        residual_eigenvalues=model.residual_eigenvalues,
+        residual_theta=model.residual_theta,
+    )
+    return limit
 
 
 def _vector(values, length: int) -> np.ndarray:

@@ -21,7 +21,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from webapp.analysis import ENGINE_VERSION
-from webapp.analysis.diagnostics import hotelling_t2, q_limit, q_limit_box, q_residuals, t2_limit
+from webapp.analysis.diagnostics import hotelling_t2, model_q_limit, model_t2_limit, q_residuals
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.pca import PCAFit, fit_pca
 from webapp.analysis.recipe import PreparedData, Recipe, prepare
@@ -139,7 +139,7 @@ def diagnose(fitted: FittedRecipe, components: int | str | None = "auto", confid
         confidence=float(confidence),
         t2=t2,
         q=q,
-        t2_limit=t2_limit(pca.n_samples, k, confidence) if k < pca.n_samples else float("inf"),
+        t2_limit=model_t2_limit(pca.n_samples, pca.eigenvalues[:k], confidence),
         q_limit=q_lim,
         q_limit_method=method,
     )
@@ -163,10 +163,15 @@ def _q_with_limit(pca: PCAFit, X: np.ndarray, k: int, confidence: float):
         # All variance-carrying components are kept, so the residual is exactly
         # the discarded scores: no cancellation from ||x||² - ||t||².
         q = np.einsum("ij,ij->i", pca.scores[:, k:], pca.scores[:, k:])
-        return q, q_limit(pca.eigenvalues[k:], confidence, total_variance=pca.total_variance), "Jackson–Mudholkar (1979)"
-    q = q_residuals(X, pca.scores[:, :k], pca.loadings[:, :k])
-    theta1, theta2 = residual_moments(pca, k)
-    return q, q_limit_box(theta1, theta2, confidence), "Box (1954) scaled chi-square"
+    else:
+        q = q_residuals(X, pca.scores[:, :k], pca.loadings[:, :k])
+    limit, method = model_q_limit(
+        confidence,
+        total_variance=pca.total_variance,
+        residual_eigenvalues=pca.eigenvalues[k:] if pca.complete_spectrum else None,
+        residual_theta=residual_moments(pca, k),
+    )
+    return q, limit, method
 
 
 def analysis_report(analysis: Analysis, table=None) -> dict:

@@ -234,3 +234,30 @@ def _q_limit_three_moment(theta1: float, theta2: float, theta3: float, confidenc
     h = theta2**3 / theta3**2
     standardized = (float(stats.chi2.ppf(confidence, h)) - h) / math.sqrt(2.0 * h)
     return max(0.0, theta1 + math.sqrt(2.0 * theta2) * standardized)
+
+
+JACKSON_MUDHOLKAR = "Jackson–Mudholkar (1979)"
+BOX = "Box (1954) scaled chi-square"
+
+
+def model_q_limit(
+    confidence: float,
+    *,
+    total_variance: float,
+    residual_eigenvalues: np.ndarray | None,
+    residual_theta: tuple[float, float],
+) -> tuple[float, str]:
+    """The Q limit of a fitted model, and the name of the method used.
+
+    The one place that decides, so that an analysis and a projection of new
+    samples against its saved model give the same limit at the same confidence.
+    With every residual eigenvalue known: Jackson & Mudholkar (1979) through
+    :func:`q_limit`, eigenvalues at or below ``ZERO_EIGENVALUE_RTOL`` x the
+    total variance counting as zero. With only θ1 = tr(Σ_E) and θ2 = tr(Σ_E²)
+    (a truncated solver): Box (1954) through :func:`q_limit_box`.
+    """
+    if residual_eigenvalues is not None:
+        limit = q_limit(residual_eigenvalues, confidence, total_variance=total_variance)
+        return limit, JACKSON_MUDHOLKAR
+    theta1, theta2 = residual_theta
+    return q_limit_box(theta1, theta2, confidence), BOX
