@@ -294,7 +294,9 @@
                 hideProgress();
                 var published = publish({ token: body.token, summary: body.summary || {}, purpose: purpose });
                 if (published) {
-                    showStatus("Received “" + file.name + "” (" + formatSize(file.size) + ").", false);
+                    showStatus("Received “" + file.name + "” (" + formatSize(file.size) + ")." +
+                        (purpose === "batch" ? "" : " Manage it under “About this data”."),
+                        false);
                 } else {
                     showStatus("The file was received, but the page is not ready to show it. Reload the page and add the file again.", true);
                 }

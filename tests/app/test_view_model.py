@@ -386,3 +386,94 @@ def test_forgetting_a_dataset_waits_for_results_still_being_written(services, mo
     services.compute.forget(record.content_hash)
     time.sleep(0.8)  # any write still under way would have landed by now
     assert not [k for k in services.compute.cache.iterkeys() if isinstance(k, str) and record.content_hash in k]
+
+
+# --- panels that cannot be drawn, left-out counts, unknown transforms (hardening) ---------------
+
+
+def _figure_outputs(specs, outputs):
+    from webapp.ui import callbacks as cb
+
+    return {s.component_id: v for s, v in zip(specs, outputs)
+            if s.component_id in cb._FIGURE_KEYS and s.component_property == "figure"}
+
+
+def test_a_panel_that_fails_to_draw_says_why_and_the_others_still_draw(services, iris_token, monkeypatch):
+    from dash import no_update
+
+    from webapp.analysis.errors import OrdinateError
+    from webapp.figures.message import MESSAGE_ANNOTATION_NAME
+    from webapp.ui import callbacks as cb
+
+    def broken(*_args, **_kwargs):
+        raise OrdinateError("These correlations cannot be drawn.")
+
+    monkeypatch.setattr(vm, "correlation_circle_figure", broken)
+    outputs, _, _ = cb._draw(services, "?" + to_query(ViewState(dataset=iris_token)), first=False)
+    assert no_update not in outputs  # no panel keeps what the page showed before
+    figures = _figure_outputs(cb._REST_OUTPUTS, outputs)
+    circle = figures["circle-graph"]
+    assert len(circle.data) == 0
+    message = [a.text for a in circle.layout.annotations if a.name == MESSAGE_ANNOTATION_NAME]
+    assert message and "could not be drawn" in message[0] and "cannot be drawn" in message[0]
+    assert len(figures["loadings-graph"].data) > 0 and len(figures["diagnostics-graph"].data) > 0
+
+
+def test_a_view_that_fails_entirely_empties_every_panel(services, demo_token, monkeypatch):
+    from dash import no_update
+
+    from webapp.ui import callbacks as cb
+
+    def broken(*_args, **_kwargs):
+        raise RuntimeError("simulated")
+
+    monkeypatch.setattr(vm, "build_view", broken)
+    for first, specs in ((True, cb._FIRST_OUTPUTS), (False, cb._REST_OUTPUTS)):
+        outputs, _, _ = cb._draw(services, "?" + to_query(ViewState(dataset=demo_token)), first=first)
+        for figure in _figure_outputs(specs, outputs).values():
+            assert figure is not no_update and len(figure.data) == 0
+        panels = {s.component_id: v for s, v in zip(specs, outputs)}
+        for name in ("variance-table", "flagged-list", "provenance"):
+            if name in panels:
+                assert panels[name] in (None, "")
+
+
+def test_extreme_values_never_leave_a_panel_of_the_previous_dataset(services, demo_token):
+    """The ±1e308 file of the hardening report: refused or drawn, but never a stale panel."""
+    from dash import no_update
+
+    from webapp.ui import callbacks as cb
+
+    token = services.store.add_bytes(b"a,b\n1,2\n-1e308,5\n2,1\n1e308,4\n", "huge.csv").token
+    for first, specs in ((True, cb._FIRST_OUTPUTS), (False, cb._REST_OUTPUTS)):
+        outputs, _, _ = cb._draw(services, "?" + to_query(ViewState(dataset=token)), first=first)
+        assert all(v is not no_update for s, v in zip(specs, outputs)
+                   if s.component_property == "figure")
+    view = vm.build_view(services, ViewState(dataset=token), wait=True)
+    assert view.title == "huge.csv"
+    if view.errors:  # refused: the message names a column
+        assert "a" in view.errors[0] and "Traceback" not in view.errors[0]
+
+
+def test_left_out_list_counts_samples_left_out_by_hand_and_for_gaps(services):
+    from webapp.ui import callbacks as cb
+
+    frame = iris_frame()
+    frame.loc[[3, 7, 11], "sepal width (cm)"] = np.nan  # three samples with a gap
+    token = services.store.add_bytes(frame.to_csv(index=False).encode(), "gaps.csv").token
+    view = vm.build_view(services, ViewState(dataset=token, missing="drop", excluded=("F020",)), wait=True)
+    assert view.dropped_for_gaps == ("F003", "F007", "F011")
+    index = [s.component_id for s in cb._FIRST_OUTPUTS].index("excluded-list")
+    text = str(cb._first_outputs(view)[index])
+    assert "1 left out by hand" in text and "3 left out for missing values" in text
+    assert "every sample is in the model" not in text
+    none_by_hand = vm.build_view(services, ViewState(dataset=token, missing="drop"), wait=True)
+    text = str(cb._first_outputs(none_by_hand)[index])
+    assert "None left out by hand" in text and "3 left out for missing values" in text
+    filled = vm.build_view(services, ViewState(dataset=token, missing="mean"), wait=True)
+    assert "every sample is in the model" in str(cb._first_outputs(filled)[index])
+
+
+def test_a_link_that_transforms_an_unknown_variable_names_it(services, iris_token):
+    view = vm.build_view(services, ViewState(dataset=iris_token, transforms=(("nosuch", "log10"),)), wait=True)
+    assert any("nosuch" in notice for notice in view.notices)

@@ -280,3 +280,26 @@ def test_leaving_out_many_samples_keeps_the_link_short(dash_duo, app, iris_csv):
     dash_duo.find_element("#restore-all").click()
     dash_duo.wait_for_contains_text("#provenance", "150 of 150", timeout=TIMEOUT)
     assert "exset=&" in dash_duo.driver.current_url
+
+
+def _summary_open(driver) -> bool:
+    return driver.execute_script("return document.querySelector('#dataset-details').open")
+
+
+def test_data_summary_stays_closed_after_upload_and_closes_on_outside_click_and_escape(dash_duo, app, iris_csv):
+    _open_with_iris(dash_duo, app, iris_csv)
+    assert "About this data" in dash_duo.find_element("#upload-status").text
+    assert not _summary_open(dash_duo.driver)  # an upload does not open it by itself
+    summary = dash_duo.find_element("#dataset-details summary")
+    summary.click()
+    _wait_for(lambda: _summary_open(dash_duo.driver))
+    dash_duo.find_element("#variance-table-element").click()  # anywhere outside the popover
+    _wait_for(lambda: not _summary_open(dash_duo.driver))
+    summary.click()
+    _wait_for(lambda: _summary_open(dash_duo.driver))
+    dash_duo.find_element("#dataset-details summary").send_keys(Keys.ESCAPE)
+    _wait_for(lambda: not _summary_open(dash_duo.driver))
+    summary.click()  # a click inside it leaves it open
+    dash_duo.find_element("#dataset-details .summary-table").click()
+    time.sleep(0.3)
+    assert _summary_open(dash_duo.driver)

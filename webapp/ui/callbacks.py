@@ -16,10 +16,12 @@ import hashlib
 import logging
 import time
 
-from dash import ALL, Input, Output, State, ctx, no_update
+from dash import ALL, Input, Output, State, ctx, html, no_update
 from dash.exceptions import PreventUpdate
 from plotly.io.json import to_json_plotly
 
+from webapp.analysis.errors import OrdinateError
+from webapp.figures.message import message_figure
 from webapp.state import NO_COLOUR, ViewState, parse_query, to_query
 from webapp.ui import layout as L
 from webapp.ui import view_model as vm
@@ -219,10 +221,38 @@ UNEXPECTED_FAILURE = (
 )
 
 
+PANEL_FAILED = "This panel could not be drawn:"
+UNEXPECTED_PANEL_FAILURE = ("This panel could not be drawn because of a problem on the server; the other panels "
+                            "are unaffected. Try another setting, or tell the person who runs this server.")
+_FIGURE_OUTPUTS = frozenset(_FIGURE_KEYS)
+_EMPTIED_ON_FAILURE = {  # what a panel shows when the whole view fails: never the previous view's numbers
+    (L.VARIANCE_TABLE, "children"): None, (L.COMPONENT_ADVICE, "children"): "", (L.COPY_TABLE, "content"): "",
+    (L.FLAGGED_LIST, "children"): None, (L.CONTRIBUTIONS, "children"): None, (L.BATCH_PANEL, "children"): None,
+    (L.PROVENANCE, "children"): None,
+}
+
+
 def _failure_outputs(notices) -> list:
     outputs = [no_update] * len(_VIEW_OUTPUTS)
     outputs[2] = notice_list(notices, (UNEXPECTED_FAILURE,))
+    for index, spec in enumerate(_VIEW_OUTPUTS):
+        if spec.component_id in _FIGURE_OUTPUTS and spec.component_property == "figure":
+            outputs[index] = message_figure(UNEXPECTED_FAILURE)
+        elif (spec.component_id, spec.component_property) in _EMPTIED_ON_FAILURE:
+            outputs[index] = _EMPTIED_ON_FAILURE[(spec.component_id, spec.component_property)]
     return outputs
+
+
+def _drawn(read, *, figure: bool):
+    """A panel's value, or a message in its place when it cannot be drawn (never a stale panel)."""
+    try:
+        return read()
+    except OrdinateError as error:
+        message = f"{PANEL_FAILED} {error}"
+    except Exception:  # never a traceback in the page: log it, say what to do
+        log.exception("Drawing a panel failed")
+        message = UNEXPECTED_PANEL_FAILURE
+    return message_figure(message) if figure else html.P(message, className="panel-problem")
 
 
 def _not_found_outputs(notices, *, start_page: bool) -> list:
@@ -258,7 +288,7 @@ def _first_outputs(view: "vm.View") -> list:
         s.missing,
         s.centring,
         s.scaling,
-        excluded_chips(s.excluded),
+        excluded_chips(s.excluded, view.dropped_for_gaps),
         controls.pc_options,
         view.pc_x,
         controls.pc_options,
@@ -272,7 +302,7 @@ def _first_outputs(view: "vm.View") -> list:
         s.confidence,
         controls.pc_options,
         view.loading_pc,
-        view.scores_figure,
+        _drawn(lambda: view.scores_figure, figure=True),
         variance_table(view.variance_rows),
         view.advice_text,
         view.variance_tsv,
@@ -281,14 +311,14 @@ def _first_outputs(view: "vm.View") -> list:
 
 def _rest_outputs(view: "vm.View") -> list:
     return [
-        view.variance_figure,
-        view.diagnostics_figure,
-        flagged_table(view.flagged),
-        view.contributions,
-        batch_panel(view.batch, view.state.confidence, view.batch_problem),
-        view.loadings_figure,
-        view.circle_figure,
-        provenance_block(view.provenance),
+        _drawn(lambda: view.variance_figure, figure=True),
+        _drawn(lambda: view.diagnostics_figure, figure=True),
+        _drawn(lambda: flagged_table(view.flagged), figure=False),
+        _drawn(lambda: view.contributions, figure=False),
+        _drawn(lambda: batch_panel(view.batch, view.state.confidence, view.batch_problem), figure=False),
+        _drawn(lambda: view.loadings_figure, figure=True),
+        _drawn(lambda: view.circle_figure, figure=True),
+        _drawn(lambda: provenance_block(view.provenance), figure=False),
     ]
 
 
@@ -432,22 +462,22 @@ def _register_actions(app, services) -> None:
         return _search_if_changed(current, current.replace(picked=labels[0]))
 
     @app.callback(url_out, Output(L.NOTICES, "children", allow_duplicate=True),
-                  Output(L.MANAGE_LINKS, "data"), Output(L.DATASET_DETAILS, "open"),
+                  Output(L.MANAGE_LINKS, "data"),
                   Input(L.UPLOAD_RESULT, "data"), State(L.MANAGE_LINKS, "data"), State(L.URL, "search"),
                   prevent_initial_call=True)
     def open_uploaded(result, links, search):
         if not result:
             raise PreventUpdate
         if result.get("error"):
-            return no_update, notice_list((), (result["error"],)), no_update, no_update
+            return no_update, notice_list((), (result["error"],)), no_update
         manage = (result.get("summary") or {}).get("manage")
         links = {**(links or {}), result["token"]: manage} if manage else no_update
         current, _ = parse_query(search)
         if result.get("purpose") == "batch" and current.dataset is not None:
             # Scored against the open view's model; the batch stays a dataset of its own too.
-            return _search_if_changed(current, current.replace(batch=result["token"])), no_update, links, no_update
-        # Open "About this data" so the uploader sees the summary and the manage link.
-        return "?" + to_query(ViewState(dataset=result["token"])), no_update, links, True
+            return _search_if_changed(current, current.replace(batch=result["token"])), no_update, links
+        # "About this data" stays closed (it would cover the controls); the upload status points to it.
+        return "?" + to_query(ViewState(dataset=result["token"])), no_update, links
 
     @app.callback(url_out, Input(L.BATCH_REMOVE, "n_clicks"), State(L.URL, "search"), prevent_initial_call=True)
     def stop_scoring_batch(clicks, search):

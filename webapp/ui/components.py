@@ -73,10 +73,15 @@ def transform_chips(transforms) -> list:
 MAX_EXCLUDED_CHIPS = 40
 
 
-def excluded_chips(labels) -> list:
+def excluded_chips(labels, dropped_for_gaps=()) -> list:
+    """Chips for the samples left out by hand, and a line for those left out for missing values."""
+    gaps = [html.Li(f"{len(dropped_for_gaps)} left out for missing values (see “Missing values” above); "
+                    "choose mean or iterative filling to keep them.", className="chip-empty")] if dropped_for_gaps else []
     if not labels:
-        return [html.Li("None: every sample is in the model.", className="chip-empty")]
-    chips = [
+        return [html.Li("None left out by hand." if gaps else "None: every sample is in the model.",
+                        className="chip-empty"), *gaps]
+    chips = [html.Li(f"{len(labels)} left out by hand:", className="chip-empty")] if gaps else []
+    chips += [
         html.Li(className="chip", children=[
             html.Span(label),
             html.Button("↺", id={"type": "restore-sample", "index": label}, n_clicks=0,
@@ -87,7 +92,7 @@ def excluded_chips(labels) -> list:
     if len(labels) > MAX_EXCLUDED_CHIPS:
         chips.append(html.Li(f"… and {len(labels) - MAX_EXCLUDED_CHIPS} more ({len(labels)} in all); "
                              "“Restore all” puts every one back.", className="chip-empty"))
-    return chips
+    return chips + gaps
 
 
 def variance_table(rows: list[dict]) -> html.Table:

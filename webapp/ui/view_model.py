@@ -81,6 +81,7 @@ class View:
     advice_text: str = ""
     provenance: dict = field(default_factory=dict)
     complete: bool = True  # False: drawn before parallel analysis finished; ask again
+    dropped_for_gaps: tuple[str, ...] = ()  # samples the missing-value rule left out (not by hand)
     figure_keys: dict = field(default_factory=dict)  # panel name -> what it depends on (see _panel_keys)
     # Panels are built on first use, so a callback that sends some of them builds only those.
     panels: "LazyPanels" = field(default_factory=lambda: LazyPanels({}))
@@ -236,8 +237,9 @@ def recipe_for(state: ViewState, table) -> tuple[Recipe, tuple[str, ...]]:
     off = set(state.variables_off)
     variables = None if not off else tuple(v for v in numeric if v not in off)
     transforms = tuple((v, t) for v, t in state.transforms if v in numeric)
-    if len(transforms) < len(state.transforms):
-        notices.append("Ignored transforms of variables this data lacks.")
+    lacking = [v for v, _ in state.transforms if v not in numeric]
+    if lacking:
+        notices.append(f"Ignored the transforms of variable(s) this data lacks: {', '.join(lacking)}.")
     recipe = Recipe(
         variables=variables,
         excluded_samples=state.excluded,
@@ -352,6 +354,7 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
         }),
         provenance=provenance(resolved, diagnostics, colour_column),
         complete=resolved.complete,
+        dropped_for_gaps=tuple(fitted.prepared.dropped_samples),
         figure_keys=keys,
     )
 
