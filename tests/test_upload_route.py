@@ -9,6 +9,7 @@ The exact wording of the messages is the project's own specification.
 
 from __future__ import annotations
 
+import hashlib
 import io
 import logging
 import re
@@ -24,6 +25,7 @@ from werkzeug.test import EnvironBuilder
 from webapp.analysis.errors import OrdinateError
 from webapp.storage import CHUNK_BYTES, DataStore
 from webapp.upload import (
+    NOT_KEPT_MESSAGE,
     SERVER_PROBLEM_MESSAGE,
     UPLOAD_PATH,
     limit_bytes_from_mb,
@@ -46,9 +48,20 @@ def fake_inspect(store: DataStore):
     return inspect
 
 
-def make_app(store: DataStore, *, limit_bytes: int = 2 * MB, inspect=None) -> flask.Flask:
+def refuse_named(filename: str):
+    """An inspector that refuses one file name: the same bytes can then be kept under another name."""
+    def inspect(record):
+        if record.filename == filename:
+            raise OrdinateError(BAD_FILE_MESSAGE)
+        return {"rows": 1}
+
+    return inspect
+
+
+def make_app(store: DataStore, *, limit_bytes: int = 2 * MB, inspect=None, on_discard=None) -> flask.Flask:
     app = flask.Flask("upload-test")
-    register_upload_route(app, store, limit_bytes=limit_bytes, inspect=inspect or fake_inspect(store))
+    register_upload_route(app, store, limit_bytes=limit_bytes, inspect=inspect or fake_inspect(store),
+                          on_discard=on_discard)
     return app
 
 
@@ -221,12 +234,53 @@ def test_operator_max_content_length_lowers_the_limit_and_answers_json(store):
 # --- refusals ---------------------------------------------------------------
 
 
-def test_unusable_file_gives_422_with_the_engine_message(client):
+def test_unusable_file_gives_422_with_the_engine_message_and_is_not_kept(client, store):
     response = post(client, b"BAD,header\n1,2,3\n", filename="bad.csv")
 
     assert response.status_code == 422
-    assert response.get_json() == {"error": BAD_FILE_MESSAGE}
+    assert response.get_json() == {"error": f"{BAD_FILE_MESSAGE} The file was not kept."}
     assert response.headers["Cache-Control"] == "no-store"
+    # No manage link was sent for it, so nothing may stay that nobody could delete.
+    assert store.datasets() == []
+    assert blob_files(store) == []
+
+
+def test_a_refused_upload_leaves_a_kept_dataset_with_the_same_bytes_alone(store):
+    client = make_app(store, inspect=refuse_named("wrong.csv")).test_client()
+    kept = post(client, CSV, filename="right.csv").get_json()["token"]
+
+    refused = post(client, CSV, filename="wrong.csv")
+
+    assert refused.status_code == 422 and refused.get_json()["error"].endswith(NOT_KEPT_MESSAGE)
+    assert [record.token for record in store.datasets()] == [kept]
+    assert store.read_bytes(store.dataset(kept)) == CSV
+    # The kept dataset's bytes stay until it is deleted too.
+    store.delete_dataset(kept)
+    assert blob_files(store) == []
+
+
+def test_a_refused_upload_is_handed_to_on_discard_after_its_deletion(store):
+    seen = []
+
+    def on_discard(record):
+        seen.append((record.filename, store.dataset(record.token), store.blob_path(record).exists()))
+
+    client = make_app(store, on_discard=on_discard).test_client()
+    post(client, b"BAD,header\n1,2,3\n", filename="bad.csv")
+
+    assert seen == [("bad.csv", None, False)]
+
+
+def test_a_failing_on_discard_still_answers_422_and_logs(store, caplog):
+    def on_discard(record):
+        raise RuntimeError("cache is gone")
+
+    with caplog.at_level(logging.ERROR, logger="webapp.upload"):
+        response = post(make_app(store, on_discard=on_discard).test_client(), b"BAD\n", filename="bad.csv")
+
+    assert response.status_code == 422
+    assert store.datasets() == [] and blob_files(store) == []
+    assert "cache is gone" in caplog.text
 
 
 @pytest.mark.parametrize("header_value", [None, "XMLHttpRequest", ""])
@@ -314,6 +368,7 @@ def test_unexpected_error_gives_500_without_details_and_logs_them(store, caplog)
     text = response.get_data(as_text=True)
     assert "Traceback" not in text and "secret internal detail" not in text
     assert "RuntimeError: secret internal detail" in caplog.text  # the traceback is in the server log
+    assert store.datasets() == [] and blob_files(store) == []  # as the message says: not stored
 
 
 def test_storage_failure_gives_500(store, monkeypatch, caplog):
@@ -379,3 +434,29 @@ def test_upload_script_parses_and_uses_the_agreed_ids():
                      "set_props", "XMLHttpRequest", "upload.onprogress"]:
         assert contract in source, contract
     assert f'"{UPLOAD_PATH}"' in source
+
+
+# --- in the real app: results cached from a refused upload go too -------------
+
+
+def test_a_refused_upload_leaves_no_cached_results_in_the_app(tmp_path, monkeypatch):
+    from webapp import app as app_module
+    from webapp.config import AppConfig
+
+    def refuse_after_parsing(state, table):
+        raise OrdinateError("This table cannot be analysed as it is.")
+
+    dash_app = app_module.create_app(AppConfig(data_dir=tmp_path / "data", demo_dataset=None))
+    services = dash_app.server.config["ordinate.services"]
+    # The table is parsed and cached first; the refusal comes after that.
+    monkeypatch.setattr(app_module, "recipe_for", refuse_after_parsing)
+    body = b"sample,a,b\nS1,1,2\nS2,2,1\nS3,3,5\n"
+
+    response = post(dash_app.server.test_client(), body, filename="refused.csv")
+
+    assert response.status_code == 422
+    assert response.get_json()["error"] == "This table cannot be analysed as it is. The file was not kept."
+    assert services.compute.stats()["parses"] == 1  # it was parsed and cached, then refused
+    assert services.store.datasets() == [] and blob_files(services.store) == []
+    content_hash = hashlib.sha256(body).hexdigest()
+    assert not [k for k in services.compute.cache.iterkeys() if isinstance(k, str) and content_hash in k]

@@ -34,9 +34,11 @@ Answers (all JSON, all ``Cache-Control: no-store``):
 405    ``{"error": ...}`` any method other than POST
 413    ``{"error": ...}`` over the size limit (before or while reading)
 415    ``{"error": ...}`` sent as an HTML form instead of raw bytes
-422    ``{"error": ...}`` the file was stored but cannot be used (the
-       :class:`~webapp.analysis.errors.OrdinateError` message)
-500    ``{"error": ...}`` anything unexpected; the traceback is logged, not sent
+422    ``{"error": ...}`` the file cannot be used (the
+       :class:`~webapp.analysis.errors.OrdinateError` message, followed by
+       :data:`NOT_KEPT_MESSAGE`); the file was deleted at once
+500    ``{"error": ...}`` anything unexpected; the traceback is logged, not sent,
+       and a file already stored is deleted
 =====  ==========================================================
 
 Security
@@ -49,6 +51,10 @@ Security
   (OWASP CSRF prevention cheat sheet, "custom request headers").
 * The file name is shown to people only; paths are built from the content
   hash by :class:`~webapp.storage.DataStore`.
+* A file that cannot be used is not kept: the uploader receives no manage link
+  for it, so nobody could delete a wrong (perhaps confidential) file later. Its
+  dataset record goes, its bytes unless another dataset holds the same bytes,
+  and (through ``on_discard``) any result cached from it.
 
 Sizes are in MB of 1024 * 1024 bytes, as in :mod:`webapp.analysis.ingest`.
 """
@@ -74,6 +80,7 @@ __all__ = [
     "limit_bytes_from_mb",
     "too_large_message",
     "SERVER_PROBLEM_MESSAGE",
+    "NOT_KEPT_MESSAGE",
     "register_upload_route",
 ]
 
@@ -89,6 +96,7 @@ SERVER_PROBLEM_MESSAGE = (
     "The upload could not be processed because of a problem on the server. "
     "The file was not stored. Please try again or tell the administrator."
 )
+NOT_KEPT_MESSAGE = "The file was not kept."
 _EMPTY_MESSAGE = "The file is empty (0 bytes). Choose a CSV file that contains a header row and data."
 _INTERRUPTED_MESSAGE = (
     "The upload was interrupted before the whole file arrived, so nothing was stored. "
@@ -107,6 +115,7 @@ _FORM_MESSAGE = (
 logger = logging.getLogger(__name__)
 
 Inspector = Callable[[DatasetRecord], dict]
+OnDiscard = Callable[[DatasetRecord], None]
 
 
 def limit_bytes_from_mb(limit_mb: float) -> int:
@@ -142,6 +151,7 @@ def register_upload_route(
     *,
     limit_bytes: int,
     inspect: Inspector,
+    on_discard: OnDiscard | None = None,
     path: str = UPLOAD_PATH,
 ) -> None:
     """Add the streaming upload route and its error handlers to ``server``.
@@ -159,6 +169,11 @@ def register_upload_route(
         ``inspect(record) -> dict`` parses the stored file and returns a
         JSON-able summary; it raises :class:`OrdinateError` for a file that
         cannot be used.
+    on_discard : callable, optional
+        Called as ``on_discard(record)`` after an upload that could not be used
+        was deleted from the store, e.g. to drop results cached from it. As with
+        the manage page's ``on_delete``, other datasets may hold the same bytes
+        (then ``store.blob_path(record).exists()``). Its errors are logged.
     path : str
         URL of the route on the Flask server; the default is :data:`UPLOAD_PATH`.
 
@@ -205,9 +220,11 @@ def register_upload_route(
             summary = inspect(record)
             return _json(200, {"token": record.token, "summary": summary})
         except OrdinateError as error:
-            return _error(422, str(error))
+            _discard(store, record, on_discard)
+            return _error(422, f"{error} {NOT_KEPT_MESSAGE}")
         except Exception:
             logger.exception("Inspecting upload %s failed", record.token)
+            _discard(store, record, on_discard)
             return _error(500, SERVER_PROBLEM_MESSAGE)
 
     server.add_url_rule(
@@ -230,6 +247,16 @@ def register_upload_route(
         response = _error(405, _METHOD_MESSAGE)
         response.headers["Allow"] = "POST"
         return response
+
+
+def _discard(store: DataStore, record: DatasetRecord, on_discard: OnDiscard | None) -> None:
+    """Delete an upload that cannot be used; never raises (the user gets the reason it failed)."""
+    try:
+        store.delete_dataset(record.token)
+        if on_discard is not None:
+            on_discard(record)
+    except Exception:
+        logger.exception("Deleting the unusable upload %s failed", record.token)
 
 
 def _effective_limit(limit_bytes: int) -> int:
