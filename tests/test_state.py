@@ -17,7 +17,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from webapp import state as state_module
+from webapp.state import url_codec as state_module
 from webapp.state import (
     NO_COLOUR,
     PARAMETERS,

@@ -1,66 +1,38 @@
-"""The one definition of a view's state and of its URL form.
+"""The URL form of a view state: parse, validate, write and version the query string.
 
-Every view of Ordinate is a URL. The query string holds the complete view - the
-dataset's link code and every setting - in readable, versioned parameters, so
-that pasting a link into a fresh browser reproduces the identical view. This
-module is the only place that parses, validates, writes and versions that
-query string; nobody else builds or reads view parameters by hand.
-
-Conventions (the full table of parameters is in ``docs/url-state.md``):
-
-* ``to_query`` writes *every* parameter, in one fixed order, so that a link keeps
-  its meaning even if a default changes in a later release. Empty lists are
-  written explicitly as an empty value (``ex=``), optional values that are unset
-  as an empty value (``ds=``, ``pick=``) or as the keyword ``auto`` (``k``,
-  ``id``, ``colour``).
-* String lists (``off``, ``ex``, ``tf``) are repeated parameters
-  (``ex=B-001&ex=B-007``), so labels containing commas survive; numeric lists
-  (``sigma``) are comma separated (``sigma=1,2,3``).
-* ``parse_query`` never raises. Anything it cannot use - an unknown parameter, a
-  value it cannot read or that is out of range, a repeated single-valued
-  parameter, a link from a newer version - falls back to the default for that
-  setting and produces one readable notice (a complete sentence) for the user.
-* Round trip: ``parse_query(to_query(s)) == (s, ())`` for every valid state,
-  and ``to_query(parse_query(q)[0])`` is a fixed point for any text ``q``.
-
-Column names and sample labels are free text. Where a parameter also has
-keywords (``id=auto``, ``colour=auto``, ``colour=none``), a column whose name is
-one of those keywords, or starts with ``~``, is written with one extra leading
-``~`` (a column called ``auto`` is ``colour=~auto``).
-
-Versioning: ``STATE_VERSION`` is the format that ``to_query`` writes (parameter
-``v``). A link without ``v`` is read as format 1. To introduce format N+1:
-
-1. set ``STATE_VERSION = N + 1`` and change the parameter table below;
-2. add ``_UPGRADES[N] = _upgrade_N_to_N_plus_1``: a function taking the list of
-   ``(name, value)`` pairs of a format-N link and returning the pairs as format
-   N+1 would have written them, plus any notices for the user (for example when
-   a setting no longer exists);
-3. keep every older step: a format-1 link then passes through steps 1, 2, ...
-   N in turn. ``tests/test_state.py`` checks that the chain has no gaps.
+This module is the only place that reads or writes view parameters; see
+:mod:`webapp.state` for the conventions and the versioning procedure.
 """
 
 from __future__ import annotations
 
-import dataclasses
-import numbers
 import re
-from collections.abc import Callable, Mapping
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 from urllib.parse import parse_qsl, quote, urlencode
 
+from webapp.state.view_state import (
+    BIPLOT_SCALINGS,
+    CENTRINGS,
+    ELLIPSE_MODES,
+    MAX_CONFIDENCE,
+    MAX_PC,
+    MAX_SIGMA,
+    MAX_SIGMA_LEVELS,
+    MAX_SLIDE,
+    MIN_CONFIDENCE,
+    MISSING_POLICIES,
+    NO_COLOUR,
+    SCALINGS,
+    TRANSFORMS,
+    _TOKEN_PATTERN,
+    ViewState,
+    ViewStateError,
+)
+
 __all__ = [
     "STATE_VERSION",
-    "ViewState",
-    "ViewStateError",
-    "NO_COLOUR",
-    "MISSING_POLICIES",
-    "CENTRINGS",
-    "SCALINGS",
-    "TRANSFORMS",
-    "ELLIPSE_MODES",
-    "BIPLOT_SCALINGS",
     "PARAMETERS",
     "UrlParameter",
     "RECIPE_PARAMETERS",
@@ -72,254 +44,11 @@ __all__ = [
 
 STATE_VERSION = 1
 
-# Allowed choices; the first one listed is not necessarily the default.
-MISSING_POLICIES: tuple[str, ...] = ("drop", "mean", "iterative")
-CENTRINGS: tuple[str, ...] = ("mean", "none")
-SCALINGS: tuple[str, ...] = ("unit", "none", "pareto", "range")
-TRANSFORMS: tuple[str, ...] = ("none", "log10", "ln", "log1p", "sqrt")
-ELLIPSE_MODES: tuple[str, ...] = ("group", "all")
-BIPLOT_SCALINGS: tuple[str, ...] = ("correlation", "distance")
-
-#: ``ViewState.colour_by`` value meaning "do not colour the points" (URL: ``colour=none``).
-NO_COLOUR = ""
-
-MAX_PC = 100  # highest component number a link may ask for; the engine clamps to what the data allow
-MAX_SIGMA_LEVELS = 6
-MAX_SIGMA = 10.0
-MIN_CONFIDENCE = 0.5  # exclusive
-MAX_CONFIDENCE = 0.9999  # inclusive
-MAX_SLIDE = 1000
-
-_TOKEN_PATTERN = re.compile(r"[A-Za-z0-9_-]{16,64}")
 _WHOLE_NUMBER_PATTERN = re.compile(r"[0-9]{1,9}")
 _DECIMAL_PATTERN = re.compile(r"(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][-+]?[0-9]{1,3})?")
 _ESCAPE = "~"
 _MAX_NOTICES = 20
 _MAX_SHOWN_VALUE = 60
-
-
-class ViewStateError(ValueError):
-    """A ``ViewState`` was built with an invalid value: a programming error.
-
-    User input (a pasted link) never raises; it goes through ``parse_query``,
-    which turns every problem into a notice instead.
-    """
-
-
-# --------------------------------------------------------------------------------------
-# Validation of single values (shared by the constructor and the parser)
-# --------------------------------------------------------------------------------------
-
-
-def _check_text(value: Any, what: str) -> str:
-    if not isinstance(value, str) or value == "":
-        raise ViewStateError(f"{what} must be a non-empty string, got {value!r}.")
-    try:
-        value.encode("utf-8")
-    except UnicodeEncodeError:
-        raise ViewStateError(f"{what} must be valid Unicode text, got {value!r}.") from None
-    return value
-
-
-def _check_optional_text(value: Any, what: str) -> str | None:
-    return None if value is None else _check_text(value, what)
-
-
-def _check_text_tuple(values: Any, what: str) -> tuple[str, ...]:
-    if isinstance(values, str):
-        raise ViewStateError(f"{what} must be a sequence of strings, not one string ({values!r}).")
-    return tuple(sorted({_check_text(v, what) for v in values}))
-
-
-def _check_choice(value: Any, choices: tuple[str, ...], what: str) -> str:
-    if value not in choices:
-        raise ViewStateError(f"{what} must be one of {', '.join(choices)}; got {value!r}.")
-    return value
-
-
-def _check_int(value: Any, low: int, high: int, what: str) -> int:
-    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
-        raise ViewStateError(f"{what} must be a whole number, got {value!r}.")
-    value = int(value)
-    if not low <= value <= high:
-        raise ViewStateError(f"{what} must be between {low} and {high}, got {value}.")
-    return value
-
-
-def _check_bool(value: Any, what: str) -> bool:
-    if not isinstance(value, bool):
-        raise ViewStateError(f"{what} must be True or False, got {value!r}.")
-    return value
-
-
-def _check_confidence(value: Any) -> float:
-    if isinstance(value, bool) or not isinstance(value, numbers.Real):
-        raise ViewStateError(f"confidence must be a number, got {value!r}.")
-    value = float(value)
-    if not (MIN_CONFIDENCE < value <= MAX_CONFIDENCE):
-        raise ViewStateError(
-            f"confidence must be above {MIN_CONFIDENCE} and at most {MAX_CONFIDENCE}, got {value!r}."
-        )
-    return value
-
-
-def _check_view_id(value: Any) -> str | None:
-    if value is None or (isinstance(value, str) and _TOKEN_PATTERN.fullmatch(value)):
-        return value
-    raise ViewStateError(f"saved_view must be None or a link code; got {value!r}.")
-
-
-def _check_sigma_levels(values: Any) -> tuple[float, ...]:
-    levels: set[float] = set()
-    for value in values:
-        if isinstance(value, bool) or not isinstance(value, numbers.Real):
-            raise ViewStateError(f"sigma_levels must hold numbers, got {value!r}.")
-        value = float(value)
-        if not (0.0 < value <= MAX_SIGMA):  # also rejects NaN
-            raise ViewStateError(f"sigma levels must be above 0 and at most {MAX_SIGMA:g}, got {value!r}.")
-        levels.add(value)
-    if len(levels) > MAX_SIGMA_LEVELS:
-        raise ViewStateError(f"at most {MAX_SIGMA_LEVELS} sigma levels are allowed, got {len(levels)}.")
-    return tuple(sorted(levels))
-
-
-def _check_transforms(values: Any) -> tuple[tuple[str, str], ...]:
-    pairs = values.items() if isinstance(values, Mapping) else values
-    chosen: dict[str, str] = {}
-    for pair in pairs:
-        try:
-            variable, transform = pair
-        except (TypeError, ValueError):
-            raise ViewStateError(f"transforms must hold (variable, transform) pairs, got {pair!r}.") from None
-        variable = _check_text(variable, "a transformed variable's name")
-        transform = _check_choice(transform, TRANSFORMS, f"the transform of {variable!r}")
-        if variable in chosen and chosen[variable] != transform:
-            raise ViewStateError(
-                f"variable {variable!r} is given two transforms: {chosen[variable]!r} and {transform!r}."
-            )
-        chosen[variable] = transform
-    return tuple(sorted((v, t) for v, t in chosen.items() if t != "none"))
-
-
-# --------------------------------------------------------------------------------------
-# The state
-# --------------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class ViewState:
-    """Everything that defines one view: which data, what is fitted, what is drawn.
-
-    Instances are immutable, validated and canonical: building one with an
-    invalid value raises ``ViewStateError``; lists are stored as sorted,
-    de-duplicated tuples so that two states describing the same view compare
-    (and hash) equal. Use ``replace`` to derive a changed copy.
-
-    Fields fall in three groups, by how much work a change causes:
-
-    * the *recipe* (``recipe_key``) - changing it refits the model;
-    * the *diagnostics* settings ``components`` and ``confidence`` - changing them
-      recomputes Hotelling's T², Q residuals and their limits, not the fit;
-    * everything else - changing it only redraws.
-
-    ``colour_by`` has three meanings: ``None`` colours by the detected group
-    column (URL ``colour=auto``), ``NO_COLOUR`` (the empty string) draws every
-    point alike (URL ``colour=none``), any other string names the column.
-    """
-
-    dataset: str | None = None
-    # the recipe: changing any of these refits
-    variables_off: tuple[str, ...] = ()
-    excluded: tuple[str, ...] = ()
-    excluded_set: str | None = None  # code of a stored list of excluded samples (long lists stay out of links)
-    transforms: tuple[tuple[str, str], ...] = ()
-    missing: str = "drop"
-    centring: str = "mean"
-    scaling: str = "unit"
-    id_column: str | None = None
-    # diagnostics: recomputed cheaply, no refit
-    components: int | None = None
-    confidence: float = 0.95
-    # drawing only
-    pc_x: int = 1
-    pc_y: int = 2
-    sigma_levels: tuple[float, ...] = (2.0,)
-    ellipse_by: str = "group"
-    hotelling: bool = False
-    colour_by: str | None = None
-    arrows: bool = True
-    biplot_scaling: str = "correlation"
-    labels: bool = False
-    loading_pc: int = 1
-    picked: str | None = None
-    batch: str | None = None  # dataset code of a new batch scored against this view's model
-    saved_view: str | None = None
-    present: bool = False
-    slide: int = 1
-
-    def __post_init__(self) -> None:
-        for name in ("dataset", "batch", "excluded_set"):
-            code = getattr(self, name)
-            if code is not None and not (isinstance(code, str) and _TOKEN_PATTERN.fullmatch(code)):
-                raise ViewStateError(
-                    f"{name} must be None or a link code of 16 to 64 letters, digits, '-' or '_'; got {code!r}."
-                )
-        colour_by = self.colour_by
-        if colour_by is not None and colour_by != NO_COLOUR:
-            colour_by = _check_text(colour_by, "colour_by")
-        canonical = {
-            "variables_off": _check_text_tuple(self.variables_off, "variables_off"),
-            "excluded": _check_text_tuple(self.excluded, "excluded"),
-            "transforms": _check_transforms(self.transforms),
-            "missing": _check_choice(self.missing, MISSING_POLICIES, "missing"),
-            "centring": _check_choice(self.centring, CENTRINGS, "centring"),
-            "scaling": _check_choice(self.scaling, SCALINGS, "scaling"),
-            "id_column": _check_optional_text(self.id_column, "id_column"),
-            "components": None if self.components is None else _check_int(self.components, 1, MAX_PC, "components"),
-            "confidence": _check_confidence(self.confidence),
-            "pc_x": _check_int(self.pc_x, 1, MAX_PC, "pc_x"),
-            "pc_y": _check_int(self.pc_y, 1, MAX_PC, "pc_y"),
-            "sigma_levels": _check_sigma_levels(self.sigma_levels),
-            "ellipse_by": _check_choice(self.ellipse_by, ELLIPSE_MODES, "ellipse_by"),
-            "hotelling": _check_bool(self.hotelling, "hotelling"),
-            "colour_by": colour_by,
-            "arrows": _check_bool(self.arrows, "arrows"),
-            "biplot_scaling": _check_choice(self.biplot_scaling, BIPLOT_SCALINGS, "biplot_scaling"),
-            "labels": _check_bool(self.labels, "labels"),
-            "loading_pc": _check_int(self.loading_pc, 1, MAX_PC, "loading_pc"),
-            "picked": _check_optional_text(self.picked, "picked"),
-            "saved_view": _check_view_id(self.saved_view),
-            "present": _check_bool(self.present, "present"),
-            "slide": _check_int(self.slide, 1, MAX_SLIDE, "slide"),
-        }
-        for name, value in canonical.items():
-            object.__setattr__(self, name, value)
-
-    def unsaved(self) -> ViewState:
-        """This view detached from the saved view it was opened from (after any change)."""
-        return dataclasses.replace(self, saved_view=None)
-
-    def replace(self, **changes: Any) -> ViewState:
-        """A validated copy with ``changes`` applied; raises ``ViewStateError`` for invalid values."""
-        return dataclasses.replace(self, **changes)
-
-    def recipe_key(self) -> tuple:
-        """The fields that change the fitted model, for cache keys (with the dataset's own key)."""
-        return (
-            self.variables_off,
-            self.excluded,
-            self.excluded_set,
-            self.transforms,
-            self.missing,
-            self.centring,
-            self.scaling,
-            self.id_column,
-        )
-
-    def diagnostics_key(self) -> tuple:
-        """``recipe_key`` plus the settings that change T², Q and their limits (``components``, ``confidence``)."""
-        return (*self.recipe_key(), self.components, self.confidence)
-
 
 # --------------------------------------------------------------------------------------
 # The URL form: one entry per parameter, in the order ``to_query`` writes them
