@@ -10,14 +10,11 @@ import pandas as pd
 
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.ingest.parse import LineLocator
+from webapp.analysis.ingest.column_types import settle_column_types
 from webapp.analysis.ingest.roles import find_group_columns, find_id_column, integers_as_text
 from webapp.analysis.ingest.sniff import Layout
-from webapp.analysis.ingest.table import MIN_ROWS, MISSING_MARKERS, Table, header_only_error, within
+from webapp.analysis.ingest.table import MIN_ROWS, Table, header_only_error
 
-_SPREADSHEET_ERRORS: frozenset[str] = frozenset(
-    {"#DIV/0!", "#VALUE!", "#REF!", "#NUM!", "#NAME?", "#NULL!", "#SPILL!", "#CALC!"}
-)
-_TEXT_SAMPLE_CELLS = 1000
 _MIN_NUMERIC_COLUMNS = 2
 
 
@@ -34,23 +31,22 @@ def build_table(
     if len(parsed) == 0:
         raise header_only_error(subject)
 
-    numeric, looks_numeric = _settle_column_types(
-        parsed, names, layout.decimal, locator, max_cell_chars, subject, notes
-    )
-    parsed.columns = names
-    missing = parsed.isna().to_numpy()  # one mask serves empty columns, empty rows and missing counts
-    frame, missing = _drop_empty_columns(parsed, missing, layout.header, notes)
+    typed = settle_column_types(parsed, names, layout.decimal, locator, max_cell_chars, subject, notes)
+    numeric, looks_numeric = typed.numeric, typed.looks_numeric
+    missing = typed.frame.isna().to_numpy()  # one mask serves empty columns, empty rows and missing counts
+    frame, missing = _drop_empty_columns(typed.frame, missing, layout.header, notes)
     _note_unnamed_columns(frame, layout.header, notes)
     frame, missing, row_numbers = _drop_empty_rows(frame, missing, notes)
     _require_rows(len(frame), subject)
 
-    numeric = [name for name in numeric if name in frame.columns]
-    text_columns = [name for name in frame.columns if name not in numeric]
+    kept = set(frame.columns)
+    numeric = [name for name in numeric if name in kept]
+    text_columns = _other_columns(frame, numeric)
     id_column = find_id_column(frame, numeric, [n for n in text_columns if n not in looks_numeric])
     if id_column is not None and id_column in numeric:
         frame[id_column] = integers_as_text(frame[id_column])
         numeric.remove(id_column)
-        text_columns = [name for name in frame.columns if name not in numeric]
+        text_columns = _other_columns(frame, numeric)
     _require_numeric_columns(numeric, text_columns, looks_numeric, subject)
 
     missing_per_column = dict(zip(frame.columns, missing.sum(axis=0).tolist()))
@@ -69,42 +65,9 @@ def build_table(
     )
 
 
-def _settle_column_types(
-    parsed: pd.DataFrame,
-    names: Sequence[str],
-    decimal: str,
-    locator: LineLocator,
-    max_cell_chars: int,
-    subject: str,
-    notes: list[str],
-) -> tuple[list[str], dict[str, str]]:
-    """Make every column float64 or trimmed text, in place; columns are still numbered.
-
-    Returns the numeric column names, and for each nearly numeric text column
-    a description of its first cell that is not a number.
-    """
-    numeric: list[str] = []
-    looks_numeric: dict[str, str] = {}
-    for position, name in enumerate(names):
-        series = parsed[position]
-        if _is_plain_numeric(series):
-            values = series.to_numpy(dtype=np.float64)
-            finished = _finish_numeric(values, name, notes)
-            if finished is not values or series.dtype != np.float64:
-                parsed[position] = finished
-            numeric.append(name)
-            continue
-        as_text = series.astype("str")  # also turns mixed chunks and True/False into text
-        _check_cell_lengths(as_text, name, max_cell_chars, locator, subject)
-        text, values, stray = _classify_text_column(as_text, decimal, name, notes)
-        if values is not None:
-            parsed[position] = _finish_numeric(values, name, notes)
-            numeric.append(name)
-            continue
-        parsed[position] = text
-        if stray is not None:
-            looks_numeric[name] = _describe_stray_cell(name, stray, text, locator, notes)
-    return numeric, looks_numeric
+def _other_columns(frame: pd.DataFrame, numeric: Sequence[str]) -> list[str]:
+    numeric_set = set(numeric)
+    return [name for name in frame.columns if name not in numeric_set]
 
 
 def _require_rows(n_rows: int, subject: str) -> None:
@@ -168,106 +131,6 @@ def _note_unnamed_columns(frame: pd.DataFrame, raw_header: Sequence[str], notes:
         )
 
 
-def _is_plain_numeric(series: pd.Series) -> bool:
-    dtype = series.dtype
-    return pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)
-
-
-def _finish_numeric(values: np.ndarray, name: str, notes: list[str]) -> np.ndarray:
-    """Infinite values become missing, with a note; returns ``values`` itself when there are none."""
-    infinite = np.isinf(values)
-    n_infinite = int(infinite.sum())
-    if not n_infinite:
-        return values
-    notes.append(
-        f"Column '{name}' had {n_infinite} cell{'s' if n_infinite > 1 else ''} reading an infinite "
-        f"value ('inf', '-inf' or 'Infinity'); "
-        f"{'they are' if n_infinite > 1 else 'it is'} treated as missing."
-    )
-    return np.where(infinite, np.nan, values)
-
-
-def _check_cell_lengths(
-    text: pd.Series, name: str, max_cell_chars: int, locator: LineLocator, subject: str
-) -> None:
-    lengths = text.str.len()
-    too_long = (lengths > max_cell_chars).to_numpy(dtype=bool, na_value=False)
-    if not too_long.any():
-        return
-    row_index = int(np.argmax(too_long))
-    raise OrdinateError(
-        f"{within(subject)}, the value in column '{name}', row {row_index + 1} (line "
-        f"{locator.line_of_data_row(row_index)} of the file) is {int(lengths.iloc[row_index]):,} characters "
-        f"long; the limit is {max_cell_chars:,}. Check for a quotation mark (\") that is never closed."
-    )
-
-
-def _classify_text_column(
-    raw_text: pd.Series, decimal: str, name: str, notes: list[str]
-) -> tuple[pd.Series, np.ndarray | None, tuple[int, int] | None]:
-    """Decide whether a column pandas left as text is really numeric.
-
-    Returns the trimmed text (missing markers as NaN); the float values when
-    every filled cell is a number, else None; and, for a text column in which
-    at least half the filled cells are numbers, the row index of the first
-    cell that is not and the number of such cells.
-    """
-    text = raw_text.str.strip()
-    missing = text.isna() | text.isin(MISSING_MARKERS)
-    spreadsheet_error = text.isin(_SPREADSHEET_ERRORS)
-    n_errors = int(spreadsheet_error.sum())
-    if n_errors:
-        notes.append(
-            f"Column '{name}' had {n_errors} spreadsheet error cell{'s' if n_errors > 1 else ''} "
-            f"(such as '{text[spreadsheet_error].iloc[0]}'); {'they are' if n_errors > 1 else 'it is'} "
-            "treated as missing."
-        )
-    missing |= spreadsheet_error
-    text = text.mask(missing)
-
-    filled = text[~missing]
-    if len(filled) == 0:
-        return text, None, None
-    if len(filled) > _TEXT_SAMPLE_CELLS:
-        # Columns of names or comments fail on a spread-out sample: no need to convert them whole.
-        spread = np.linspace(0, len(filled) - 1, _TEXT_SAMPLE_CELLS).astype(np.intp)
-        if _as_numbers(filled.iloc[spread], decimal).isna().mean() > 0.5:
-            return text, None, None
-    parsed = _as_numbers(filled, decimal)
-    not_number = parsed.isna()
-    if not not_number.any():
-        values = np.full(len(text), np.nan)
-        values[(~missing).to_numpy()] = parsed.to_numpy(dtype=np.float64)
-        return text, values, None
-    if not_number.mean() <= 0.5:
-        return text, None, (int(not_number.idxmax()), int(not_number.sum()))
-    return text, None, None
-
-
-def _as_numbers(strings: pd.Series, decimal: str) -> pd.Series:
-    """Float value of each trimmed string, NaN where it is not a number."""
-    if decimal == ",":
-        # Under a decimal comma a dot can only be a thousands separator, which is not supported.
-        strings = strings.mask(strings.str.contains(".", regex=False), "not a number")
-        strings = strings.str.replace(",", ".", regex=False)
-    return pd.to_numeric(strings, errors="coerce")
-
-
-def _describe_stray_cell(
-    name: str, stray: tuple[int, int], text: pd.Series, locator: LineLocator, notes: list[str]
-) -> str:
-    row_index, n_stray = stray
-    value = str(text.iloc[row_index])
-    shown = value if len(value) <= 40 else value[:37] + "..."
-    where = f"row {row_index + 1} (line {locator.line_of_data_row(row_index)} of the file) reads '{shown}'"
-    others = f" ({n_stray} cells in all are not numbers)" if n_stray > 1 else ""
-    notes.append(
-        f"Column '{name}' looks numeric but {where}{others}; it is treated as text. "
-        "Fix or blank those cells to use it as a variable."
-    )
-    return where
-
-
 def _drop_empty_columns(
     frame: pd.DataFrame, missing: np.ndarray, raw_header: Sequence[str], notes: list[str]
 ) -> tuple[pd.DataFrame, np.ndarray]:
@@ -301,7 +164,6 @@ def _drop_empty_rows(
         )
     row_numbers.flags.writeable = False
     return frame, missing, row_numbers
-
 
 
 def _require_numeric_columns(

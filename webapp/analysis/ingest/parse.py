@@ -24,7 +24,8 @@ class LineLocator:
 
     Without quotation marks every record is one line, so the answer is
     arithmetic. With them a record may span lines; then the file is scanned
-    with the csv module, which only happens on the way to an error or warning.
+    once with the csv module, on the way to the first error or warning that
+    needs it, and the start line of every record is kept for the others.
     """
 
     def __init__(self, raw_file: RawFile, encoding: str, layout: Layout):
@@ -32,6 +33,7 @@ class LineLocator:
         self._encoding = encoding
         self._layout = layout
         self._one_line_per_record: bool | None = None  # decided on first use: it costs a pass over the data
+        self._record_lines: list[int] | None = None
 
     def line_of_data_row(self, row_index: int) -> int:
         """File line where data row ``row_index`` (0-based, blank rows counted) starts."""
@@ -39,18 +41,12 @@ class LineLocator:
             self._one_line_per_record = self._raw_file.find(b'"') < 0
         if self._one_line_per_record:
             return self._layout.header_last_line + 1 + row_index
-        target = self._layout.skip_records + row_index
-        for index, (first_line, _fields) in enumerate(self._records()):
-            if index == target:
-                return first_line
-        return self._layout.header_last_line + 1 + row_index
+        return self._line_of_record_or(self._layout.skip_records + row_index,
+                                       self._layout.header_last_line + 1 + row_index)
 
     def line_of_record(self, record_index: int) -> int:
         """File line where record ``record_index`` (0-based from the file start) starts."""
-        for index, (first_line, _fields) in enumerate(self._records()):
-            if index == record_index:
-                return first_line
-        return record_index + 1
+        return self._line_of_record_or(record_index, record_index + 1)
 
     def first_longer_record(self, n_fields: int) -> tuple[int, int] | None:
         """(line, field count) of the first data record with more than ``n_fields`` fields."""
@@ -58,6 +54,13 @@ class LineLocator:
             if index >= self._layout.skip_records and len(fields) > n_fields:
                 return first_line, len(fields)
         return None
+
+    def _line_of_record_or(self, record_index: int, fallback: int) -> int:
+        if self._record_lines is None:
+            self._record_lines = [first_line for first_line, _fields in self._records()]
+        if record_index < len(self._record_lines):
+            return self._record_lines[record_index]
+        return fallback
 
     def _records(self) -> Iterator[tuple[int, list[str]]]:
         with io.TextIOWrapper(

@@ -10,6 +10,7 @@ import pandas as pd
 
 _MAX_TEXT_GROUPS = 20
 _MAX_NUMERIC_GROUPS = 10
+_HEAD_ROWS = 64
 _NAME_WORDS = re.compile(r"[A-Z]+(?![a-z])|[A-Z]?[a-z]+|\d+|#")
 _ID_WORDS = frozenset(
     {"id", "ids", "sample", "samples", "name", "batch", "label", "lot", "code", "run",
@@ -42,7 +43,7 @@ def _is_complete_and_unique(series: pd.Series) -> bool:
 
 def _is_integer_valued(series: pd.Series) -> bool:
     values = series.to_numpy(dtype=np.float64)
-    head = values[:64]
+    head = values[:_HEAD_ROWS]
     if not _all_whole_numbers(head[~np.isnan(head)]):  # most measurement columns fail here, cheaply
         return False
     values = values[~np.isnan(values)]
@@ -60,19 +61,34 @@ def integers_as_text(series: pd.Series) -> pd.Series:
 def find_group_columns(
     frame: pd.DataFrame, numeric: Sequence[str], text_columns: Sequence[str], id_column: str | None
 ) -> tuple[str, ...]:
+    text_set = set(text_columns)
+    whole_at_head = set(_whole_numbers_at_head(frame, numeric))
     groups = []
     for name in frame.columns:
         if name == id_column:
             continue
-        if name in text_columns and _has_few_repeated_values(frame[name], _MAX_TEXT_GROUPS):
+        if name in text_set and _has_few_repeated_values(frame[name], _MAX_TEXT_GROUPS):
             groups.append(name)
         elif (
-            name in numeric
+            name in whole_at_head
             and _is_integer_valued(frame[name])
             and _has_few_repeated_values(frame[name], _MAX_NUMERIC_GROUPS)
         ):
             groups.append(name)
     return tuple(groups)
+
+
+def _whole_numbers_at_head(frame: pd.DataFrame, numeric: Sequence[str]) -> list[str]:
+    """Numeric columns whose first cells are whole numbers: one array pass, not one per column.
+
+    Most measurement columns fail here; wide spectra have tens of thousands of them.
+    """
+    if not numeric:
+        return []
+    head = frame.iloc[:_HEAD_ROWS][list(numeric)].to_numpy(dtype=np.float64)
+    with np.errstate(invalid="ignore"):
+        whole = np.isnan(head) | ((head == np.round(head)) & (np.abs(head) < 2**53))
+    return [name for name, ok in zip(numeric, whole.all(axis=0).tolist()) if ok]
 
 
 def _has_few_repeated_values(series: pd.Series, cap: int) -> bool:

@@ -16,6 +16,7 @@ _DELIMITERS = ("\t", ";", ",", "|")  # tie-break order: rarest in values first
 _EXCEL_SEP_LINE = re.compile(r'\A"?sep=(.)"?[ \t]*\r?\n?', re.IGNORECASE)
 _COMMA_DECIMAL = re.compile(r"^[+-]?(\d+,\d*|,\d+)([eE][+-]?\d+)?$")
 _DOT_DECIMAL = re.compile(r"^[+-]?(\d+\.\d*|\.\d+)([eE][+-]?\d+)?$")
+_SNIFF_LINES = 5  # the header and enough rows to compare field counts (the last may be cut)
 
 
 @dataclass(frozen=True)
@@ -41,7 +42,7 @@ class Layout:
 def sniff_layout(
     raw_file: RawFile, encoding: str, filename: str | None, max_cell_chars: int, subject: str
 ) -> Layout:
-    n_bytes = SNIFF_BYTES
+    n_bytes = max(SNIFF_BYTES, raw_file.end_of_line(_SNIFF_LINES))
     while True:
         text, complete = decode_prefix(raw_file, encoding, n_bytes)
         sep_line = _EXCEL_SEP_LINE.match(text)
@@ -76,6 +77,26 @@ def sniff_layout(
 
 
 def _split_records(text: str, delimiter: str, complete: bool, subject: str) -> list[_Record]:
+    try:
+        return _records_of(text, delimiter, complete)
+    except _UnreadableRecord as error:
+        raise _long_value_error(subject, error.line) from error
+
+
+def _long_value_error(subject: str, line: int) -> OrdinateError:
+    return OrdinateError(
+        f"{subject} could not be read near line {line}: a value there is extremely long, "
+        "usually because a quotation mark (\") is opened and never closed."
+    )
+
+
+class _UnreadableRecord(Exception):
+    def __init__(self, line: int):
+        super().__init__(line)
+        self.line = line
+
+
+def _records_of(text: str, delimiter: str, complete: bool) -> list[_Record]:
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, quotechar='"')
     records: list[_Record] = []
     next_line = 1
@@ -83,11 +104,8 @@ def _split_records(text: str, delimiter: str, complete: bool, subject: str) -> l
         for fields in reader:
             records.append(_Record(next_line, reader.line_num, fields))
             next_line = reader.line_num + 1
-    except csv.Error as error:
-        raise OrdinateError(
-            f"{subject} could not be read near line {next_line}: a value there is extremely long, "
-            "usually because a quotation mark (\") is opened and never closed."
-        ) from error
+    except csv.Error as error:  # a field over the csv module's size limit
+        raise _UnreadableRecord(next_line) from error
     if not complete and records:
         records.pop()  # the prefix may end in the middle of this record
     return records
@@ -97,8 +115,16 @@ def _choose_delimiter(text: str, complete: bool, filename: str | None, subject: 
     hinted = "\t" if filename and filename.lower().endswith((".tsv", ".tab")) else None
     best_key: tuple | None = None
     best = None
+    unreadable: _UnreadableRecord | None = None
     for rank, delimiter in enumerate(_DELIMITERS):
-        records = [r for r in _split_records(text, delimiter, complete, subject) if not r.is_blank]
+        if delimiter not in text:
+            continue
+        try:
+            records = [r for r in _records_of(text, delimiter, complete) if not r.is_blank]
+        except _UnreadableRecord as error:
+            # Split by the wrong delimiter a wide row is one huge field: that rules the candidate out.
+            unreadable = unreadable or error
+            continue
         if not records or len(records[0].fields) < 2:
             continue
         n_fields = len(records[0].fields)
@@ -107,6 +133,8 @@ def _choose_delimiter(text: str, complete: bool, filename: str | None, subject: 
         key = (share, delimiter == hinted, n_fields, -rank)
         if best_key is None or key > best_key:
             best_key, best = key, delimiter
+    if best is None and unreadable is not None:
+        raise _long_value_error(subject, unreadable.line)
     if best is None:
         raise _no_delimiter_error(subject)
     return best

@@ -51,8 +51,23 @@ class RawFile:
     def prefix(self, n_bytes: int) -> bytes:
         return bytes(self._buffer[:n_bytes])
 
-    def find(self, needle: bytes) -> int:
-        return self._buffer.find(needle)
+    def find(self, needle: bytes, start: int = 0) -> int:
+        return self._buffer.find(needle, start)
+
+    def end_of_line(self, n_lines: int) -> int:
+        """Bytes up to and including the ``n_lines``-th line break (the file's size if it has fewer).
+
+        In UTF-16 and UTF-32 a line feed is one byte of a wider character; decoding a
+        prefix leaves out a character cut at its end, and the caller grows its prefix
+        when a record is incomplete.
+        """
+        end = 0
+        for _ in range(n_lines):
+            found = self._buffer.find(b"\n", end)
+            if found < 0:
+                return self.size
+            end = found + 1
+        return min(self.size, end + 3)  # the rest of a wide line-feed character
 
     def is_ascii(self) -> bool:
         if isinstance(self._buffer, bytes):
