@@ -82,3 +82,22 @@ def test_presentation_mode(iris):
     assert big.data[2].marker.size > normal.data[2].marker.size
     bars = dict(variables=["a", "b"], loadings=np.array([0.6, -0.8]), component=1, explained_ratio=0.5)
     assert loadings_bar_figure(**bars, presentation=True).layout.font.size > loadings_bar_figure(**bars).layout.font.size
+
+
+def test_correlation_circle_leaves_out_variables_without_a_finite_correlation(iris):
+    # Values that overflow in preprocessing give NaN or infinite correlations (IEEE 754 arithmetic);
+    # the panel must still be drawn, with the other variables, and say which ones are missing.
+    r = iris["r"].copy()
+    r[1, 0] = np.nan
+    r[3, 1] = np.inf
+    fig = correlation_circle_figure(variables=iris["variables"], correlations_x=r[:, 0], correlations_y=r[:, 1],
+                                    x_title="x", y_title="y")
+    arrows = [a for a in fig.layout.annotations if a.showarrow]
+    assert len(arrows) == 2 and arrows[1].x == pytest.approx(r[2, 0], abs=1e-6)
+    names = [a.text for a in fig.layout.annotations if not a.showarrow and a.x == a.x]
+    assert iris["variables"][0] in names and iris["variables"][2] in names
+    points = fig.data[2]
+    assert np.isnan(points.x[1]) and np.isnan(points.y[3]) and np.isfinite(points.x[0])
+    notes = " ".join(a.text for a in fig.layout.annotations if a.text.startswith("Not drawn"))
+    assert f"'{iris['variables'][1]}'" in notes and f"'{iris['variables'][3]}'" in notes
+    fig.to_json()  # serialisable as sent to the page

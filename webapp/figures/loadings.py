@@ -106,18 +106,24 @@ def correlation_circle_figure(
     names = _names(variables)
     rx = as_float32(correlations_x, "x correlations", len(names))
     ry = as_float32(correlations_y, "y correlations", len(names))
-    if np.any(np.hypot(rx, ry) > 1.0 + 1e-3):
+    # A variable whose values overflowed in preprocessing has no finite correlation: it is left
+    # off the circle with a note rather than failing the whole panel.
+    placed = np.isfinite(rx) & np.isfinite(ry)
+    radius_of = np.where(placed, np.hypot(np.nan_to_num(rx), np.nan_to_num(ry)), -1.0)
+    if np.any(radius_of > 1.0 + 1e-3):
         raise OrdinateError("A correlation pair lies outside the unit circle; pass correlations, not loadings.")
     phi = np.linspace(0.0, 2.0 * np.pi, _CIRCLE_POINTS)
     circle_x, circle_y = np.cos(phi), np.sin(phi)
     circle_x[-1], circle_y[-1] = circle_x[0], circle_y[0]
-    radius_of = np.hypot(rx, ry)
-    named = np.arange(len(names))
+    named = np.flatnonzero(placed)
     notes = []
-    if max_arrows is not None and len(names) > max_arrows:
+    if max_arrows is not None and named.size > max_arrows:
         named = np.sort(np.argsort(-radius_of, kind="stable")[:max_arrows])
         notes.append(f"Arrows for the {max_arrows} of {len(names)} variables farthest from the centre; "
                      f"the others are dots (hover to read them).")
+    if not placed.all():
+        rx, ry = np.where(placed, rx, np.nan), np.where(placed, ry, np.nan)
+        notes.append(_unplaced_note([names[i] for i in np.flatnonzero(~placed)]))
     fig = new_figure(
         style,
         notes=notes,
@@ -142,3 +148,9 @@ def correlation_circle_figure(
     fig.update_layout(annotations=list(fig.layout.annotations) + arrow_annotations(
         [names[i] for i in named], rx[named], ry[named], style, labels_inside=True))
     return fig
+
+
+def _unplaced_note(unplaced: Sequence[str]) -> str:
+    shown = ", ".join(f"'{name}'" for name in unplaced[:5]) + (" and others" if len(unplaced) > 5 else "")
+    return (f"Not drawn: {shown}, whose correlation with these components is not a finite number "
+            "(values too large for the calculation); rescale those variables to see them.")
