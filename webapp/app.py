@@ -18,10 +18,11 @@ import plotly.graph_objects as go
 from flask import redirect, request
 
 from webapp import __version__
-from webapp.access import AccessConfigError, register_access_control
+from webapp.access import AccessConfigError, register_access_control, register_content_security_policy
 from webapp.analysis.errors import OrdinateError
 from webapp.compute import ComputeLayer
 from webapp.config import DEMO_TITLE, AppConfig
+from webapp.datadir import secure_data_dir
 from webapp.exports import register_export_routes
 from webapp.manage import manage_link, register_manage_routes
 from webapp.state import ViewState, parse_query, to_query
@@ -44,6 +45,7 @@ class Services:
 
 
 def create_services(config: AppConfig) -> Services:
+    secure_data_dir(config.data_dir)
     store = DataStore(config.data_dir)
     compute = ComputeLayer(store, Path(config.data_dir) / "results")
     return Services(config, store, compute)
@@ -69,6 +71,7 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
     register_export_routes(app.server, services)
     app.layout = build_layout(config)
     register_callbacks(app, services)
+    register_content_security_policy(app)
     register_upload_route(app.server, services.store, limit_bytes=config.max_upload_bytes,
                           inspect=lambda record: _inspect_upload(services, record),
                           on_discard=lambda record: _forget_if_unused(services, record))
