@@ -10,7 +10,8 @@ figure itself (a template setting for ``scaleanchor`` was ignored,
 plotly/plotly.py#3499).
 
 :data:`GRAPH_CONFIG` is the ``config`` for ``dcc.Graph``: PNG download at
-twice the screen resolution, no Plotly logo.
+twice the screen resolution, no Plotly logo, no button that sends the data to
+an outside chart service.
 """
 
 from __future__ import annotations
@@ -60,6 +61,9 @@ NOTES_ANNOTATION_NAME = "ordinate-notes"
 
 GRAPH_CONFIG: dict = {
     "displaylogo": False,
+    # Never offer to upload a figure's data to an outside chart service.
+    "showSendToCloud": False,
+    "modeBarButtonsToRemove": ["sendDataToCloud"],
     "toImageButtonOptions": {"format": "png", "scale": 2, "filename": "ordinate-figure"},
 }
 
