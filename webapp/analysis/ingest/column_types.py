@@ -124,9 +124,10 @@ def _refuse_huge_values(block: np.ndarray, numeric: list[str], locator: LineLoca
     named = ", ".join(f"'{numeric[j]}'" for j in columns[:_MAX_COLUMNS_NAMED])
     more = f" and {len(columns) - _MAX_COLUMNS_NAMED} more" if len(columns) > _MAX_COLUMNS_NAMED else ""
     several = len(columns) > 1
+    where_column = f" in '{numeric[first]}'" if several else ""
     raise OrdinateError(
         f"{within(subject)}, column{'s' if several else ''} {named}{more} hold{'' if several else 's'} values "
-        f"too large to analyse (such as {block[row_index, first]:.3g} in column '{numeric[first]}', "
+        f"too large to analyse (such as {block[row_index, first]:.3g}{where_column}, "
         f"row {row_index + 1}, line {locator.line_of_data_row(row_index)} of the file). "
         f"Numbers beyond ±{LARGEST_USABLE_MAGNITUDE:.0e} cannot be squared and summed in double precision. "
         "Rescale the column (for example, change its units) or correct the values, and load the file again."

@@ -11,7 +11,12 @@ import pandas as pd
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.ingest.parse import LineLocator
 from webapp.analysis.ingest.column_types import settle_column_types
-from webapp.analysis.ingest.roles import find_group_columns, find_id_column, integers_as_text
+from webapp.analysis.ingest.roles import (
+    find_group_columns,
+    find_id_column,
+    integers_as_text,
+    unnamed_leading_label,
+)
 from webapp.analysis.ingest.sniff import Layout
 from webapp.analysis.ingest.table import MIN_ROWS, Table, header_only_error
 
@@ -35,14 +40,16 @@ def build_table(
     numeric, looks_numeric = typed.numeric, typed.looks_numeric
     missing = typed.frame.isna().to_numpy()  # one mask serves empty columns, empty rows and missing counts
     frame, missing = _drop_empty_columns(typed.frame, missing, layout.header, notes)
-    _note_unnamed_columns(frame, layout.header, notes)
     frame, missing, row_numbers = _drop_empty_rows(frame, missing, notes)
     _require_rows(len(frame), subject)
 
     kept = set(frame.columns)
     numeric = [name for name in numeric if name in kept]
     text_columns = _other_columns(frame, numeric)
-    id_column = find_id_column(frame, numeric, [n for n in text_columns if n not in looks_numeric])
+    id_column = unnamed_leading_label(frame, layout.header[0], numeric)
+    _note_unnamed_columns(frame, layout.header, notes, id_column)
+    if id_column is None:
+        id_column = find_id_column(frame, numeric, [n for n in text_columns if n not in looks_numeric])
     if id_column is not None and id_column in numeric:
         frame[id_column] = integers_as_text(frame[id_column])
         numeric.remove(id_column)
@@ -113,9 +120,17 @@ def _clean_names(raw_names: Sequence[str], notes: list[str]) -> list[str]:
     return names
 
 
-def _note_unnamed_columns(frame: pd.DataFrame, raw_header: Sequence[str], notes: list[str]) -> None:
+def _note_unnamed_columns(
+    frame: pd.DataFrame, raw_header: Sequence[str], notes: list[str], leading_label: str | None
+) -> None:
     # Called after empty columns are dropped: a nameless empty column is not worth two notes.
-    kept = set(frame.columns)
+    if leading_label is not None:
+        notes.append(
+            f"The first column has no name in the header and holds a different value on every row "
+            f"(such as the row counter 0, 1, 2, ... that some programs write); it is used to label the "
+            f"samples ('{leading_label}'), not as a variable."
+        )
+    kept = set(frame.columns) - {leading_label}
     positions = [
         position
         for position, name in enumerate(raw_header, start=1)

@@ -37,6 +37,22 @@ def find_id_column(frame: pd.DataFrame, numeric: Sequence[str], text_columns: Se
     return None
 
 
+def unnamed_leading_label(frame: pd.DataFrame, first_raw_name: str, numeric: Sequence[str]) -> str | None:
+    """The first column, when its header cell is blank and it holds one distinct label per row.
+
+    Data-frame exports write row labels that way (pandas' ``to_csv`` writes 0..n-1
+    under an empty name); fitted as a variable, such a counter would dominate the
+    first component. Numbers must be whole: a nameless column of measurements stays one.
+    """
+    if first_raw_name.strip() or frame.shape[1] == 0 or frame.columns[0] != "column 1":
+        return None  # named, or dropped as empty
+    name = frame.columns[0]
+    column = frame[name]
+    if name in numeric and not _is_integer_valued(column):
+        return None
+    return name if _is_complete_and_unique(column) else None
+
+
 def _is_complete_and_unique(series: pd.Series) -> bool:
     return bool(series.notna().all() and series.is_unique)
 
