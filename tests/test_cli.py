@@ -61,6 +61,9 @@ def test_analyze_options_change_the_fit(iris_csv, tmp_path, capsys):
     (["analyze", "{iris}", "--components", "9"], "between 1 and 4"),
     (["analyze", "{iris}", "--id-column", "nope"], "'nope'"),
     (["analyze", "{iris}", "--transform", "species"], "VARIABLE=TRANSFORM"),
+    # Was silently ignored (exit 0); --exclude-columns already refused unknown names.
+    (["analyze", "{iris}", "--transform", "nosuch=log10"], "not among the numeric columns of the data: nosuch"),
+    (["analyze", "{iris}", "--transform", "species=log10"], ": species"),
     (["project", "missing-model.json", "{iris}"], "does not exist"),
 ])
 def test_bad_input_exits_2_with_one_line(iris_csv, capsys, args, message):
@@ -126,3 +129,65 @@ def test_datasets_list_and_delete_for_an_administrator(iris_csv, tmp_path, capsy
     assert not services.store.blob_path(gone).exists()
     assert not any(gone.content_hash in key for key in services.compute.cache.iterkeys() if isinstance(key, str))
     assert main(["datasets", "delete", gone.token, "--data-dir", str(data_dir), "--yes"]) == 2  # already gone
+
+
+def test_json_carries_every_computed_component_and_marks_the_kept(iris_csv, tmp_path, capsys):
+    # Reference: scikit-learn's PCA of the autoscaled iris data (every component).
+    import numpy as np
+    from sklearn.decomposition import PCA
+    from sklearn.preprocessing import StandardScaler
+
+    out = tmp_path / "r.json"
+    assert main(["analyze", str(iris_csv), "--components", "1", "--json", str(out)]) == 0
+    report = json.loads(out.read_text())
+    assert report["version"] == 2 and report["components"] == 1 and report["kept"] == ["PC1"]
+    assert report["computed_components"] == 4 and list(report["loadings"]) == ["PC1", "PC2", "PC3", "PC4"]
+    measured = load_iris().data
+    reference = PCA().fit(StandardScaler().fit_transform(measured) * np.sqrt(150 / 149))
+    pc2 = np.array(list(report["loadings"]["PC2"].values()))
+    assert abs(pc2 @ reference.components_[1]) == pytest.approx(1.0, abs=1e-9)  # same axis, sign by our rule
+    assert len(report["scores"]["PC4"]) == 150
+
+
+def test_analyze_names_flagged_samples_the_files_it_wrote_and_speaks_in_options(iris_csv, tmp_path, capsys):
+    out_json, out_model = tmp_path / "r.json", tmp_path / "m.json"
+    assert main(["analyze", str(iris_csv), "--components", "2", "--json", str(out_json),
+                 "--model", str(out_model)]) == 0
+    printed = capsys.readouterr().out
+    report = json.loads(out_json.read_text())
+    assert report["t2_flagged"]  # 95 % limits on 150 samples flag a few
+    assert f"above the T² limit: {', '.join(report['t2_flagged'][:20])}" in printed
+    assert f"Wrote the JSON report to {out_json}." in printed and f"reference model to {out_model}" in printed
+
+    holes = tmp_path / "holes.csv"
+    lines = iris_csv.read_text().splitlines()
+    lines[3] = ",".join(lines[3].split(",")[:2] + ["", *lines[3].split(",")[3:]])
+    holes.write_text("\n".join(lines) + "\n")
+    assert main(["analyze", str(holes)]) == 0
+    printed = capsys.readouterr().out
+    assert "Use --missing mean or --missing iterative to keep them." in printed
+    assert "Choose mean or iterative filling" not in printed
+
+
+def test_project_scores_the_samples_a_transform_can_take_and_names_the_others(iris_csv, tmp_path, capsys):
+    model = tmp_path / "m.json"
+    assert main(["analyze", str(iris_csv), "--components", "2", "--transform", "petal width (cm)=log10",
+                 "--model", str(model)]) == 0
+    batch = tmp_path / "batch.csv"
+    lines = iris_csv.read_text().splitlines()[:6]
+    cells = lines[2].split(",")
+    cells[-1] = "-0.2"  # petal width: log10 cannot take it
+    lines[2] = ",".join(cells)
+    batch.write_text("\n".join(lines) + "\n")
+    out = tmp_path / "p.json"
+    assert main(["project", str(model), str(batch), "--json", str(out)]) == 0
+    projected = json.loads(out.read_text())
+    assert projected["samples"] == ["F000", "F002", "F003", "F004"]
+    assert projected["refused_samples"] == ["F001"]
+    assert "Not scored: sample 'F001': 'petal width (cm)' = -0.2 is not greater than zero (log10)." in \
+        capsys.readouterr().out
+    # The scored samples get the same scores as in a batch without the bad row.
+    del lines[2]
+    batch.write_text("\n".join(lines) + "\n")
+    assert main(["project", str(model), str(batch), "--json", str(out)]) == 0
+    assert json.loads(out.read_text())["scores"] == projected["scores"]

@@ -28,7 +28,10 @@ def usual_umask():
 def _loose(root):
     found = []
     for path in [root, *root.rglob("*")]:
-        mode = stat.S_IMODE(path.lstat().st_mode)
+        try:
+            mode = stat.S_IMODE(path.lstat().st_mode)
+        except FileNotFoundError:  # a result lock let go by a background fit meanwhile
+            continue
         if mode & 0o077:
             found.append((str(path.relative_to(root)), oct(mode)))
     return found

@@ -16,6 +16,18 @@ from webapp.analysis.errors import OrdinateError
 
 EXIT_BAD_INPUT = 2
 SHOWN_TABLE_ROWS = 15
+SHOWN_FLAGGED = 20
+
+# The analysis speaks of dashboard controls; at the shell the same advice names the option.
+_CLI_WORDS = (
+    ("Choose mean or iterative filling of missing values instead of leaving samples out.",
+     "Use --missing mean or --missing iterative instead of leaving samples out."),
+    ("Choose mean or iterative filling to keep them.", "Use --missing mean or --missing iterative to keep them."),
+    ("Leave them out of the analysis.", "Leave them out with --exclude-columns."),
+    ("Include more numeric columns.", "Exclude fewer columns (--exclude-columns)."),
+    ("Choose another transform for this variable or fix the values.",
+     "Give this variable another --transform, or fix the values."),
+)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -24,7 +36,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return args.run(args)
     except OrdinateError as error:
-        print(f"ordinate: {error}", file=sys.stderr)
+        print(f"ordinate: {in_cli_words(str(error))}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except OSError as error:
         print(f"ordinate: cannot read or write a file: {error.strerror or error} ({error.filename}).", file=sys.stderr)
@@ -131,7 +143,7 @@ def _run_analyze(args) -> int:
     recipe = Recipe(
         variables=_chosen_variables(table, args.exclude_columns, args.id_column),
         excluded_samples=tuple(args.exclude_samples),
-        transforms=_parse_transforms(args.transform),
+        transforms=_parse_transforms(args.transform, table),
         missing=args.missing,
         centring=args.centring,
         scaling=args.scaling,
@@ -144,8 +156,10 @@ def _run_analyze(args) -> int:
     print(format_variance_table(report))
     if args.json:
         args.json.write_text(json.dumps(report, indent=1, ensure_ascii=False), encoding="utf-8")
+        print(f"Wrote the JSON report to {args.json}.")
     if args.model:
         save_model(model_from_analysis(analysis), args.model)
+        print(f"Wrote the reference model to {args.model} (score new samples with `ordinate project`).")
     return 0
 
 
@@ -159,6 +173,7 @@ def _run_project(args) -> int:
     print(format_projection(report))
     if args.json:
         args.json.write_text(json.dumps(report, indent=1, ensure_ascii=False), encoding="utf-8")
+        print(f"Wrote the JSON report to {args.json}.")
     return 0
 
 
@@ -197,14 +212,33 @@ def _chosen_variables(table, excluded, id_column) -> tuple[str, ...] | None:
     return tuple(c for c in table.numeric_columns if c not in excluded and c != id_column)
 
 
-def _parse_transforms(items: list[str]) -> tuple[tuple[str, str], ...]:
+def _parse_transforms(items: list[str], table) -> tuple[tuple[str, str], ...]:
     pairs = []
     for item in items:
         variable, sep, transform = item.rpartition("=")
         if not sep or not variable:
             raise OrdinateError(f"Write a transform as VARIABLE=TRANSFORM (for example 'Viscosity=log10'); got '{item}'.")
         pairs.append((variable, transform))
+    unknown = [variable for variable, _ in pairs if variable not in table.numeric_columns]
+    if unknown:
+        raise OrdinateError(
+            f"Cannot transform variable(s) not among the numeric columns of the data: {', '.join(unknown)}."
+        )
     return tuple(pairs)
+
+
+def in_cli_words(note: str) -> str:
+    for dashboard, shell in _CLI_WORDS:
+        note = note.replace(dashboard, shell)
+    return note
+
+
+def _flagged_line(kind: str, labels: list[str]) -> list[str]:
+    if not labels:
+        return []
+    shown = ", ".join(labels[:SHOWN_FLAGGED])
+    more = f" and {len(labels) - SHOWN_FLAGGED} more (see --json)" if len(labels) > SHOWN_FLAGGED else ""
+    return [f"  above the {kind} limit: {shown}{more}"]
 
 
 def format_variance_table(report: dict) -> str:
@@ -235,7 +269,8 @@ def format_variance_table(report: dict) -> str:
         f"At {100 * report['confidence']:g} % confidence: {len(report['t2_flagged'])} sample(s) above the T² limit, "
         f"{len(report['q_flagged'])} above the Q limit. Flags are statistical evidence, not a release decision."
     )
-    lines += [f"Note: {w}" for w in report["warnings"]]
+    lines += _flagged_line("T²", report["t2_flagged"]) + _flagged_line("Q", report["q_flagged"])
+    lines += [f"Note: {in_cli_words(w)}" for w in report["warnings"]]
     return "\n".join(lines)
 
 
@@ -249,7 +284,7 @@ def format_projection(report: dict) -> str:
         lines.append(f"{label[:20]:<20}  {t2:>10.3f}  {q:>10.3f}  {' '.join(flags)}")
     lines.append(f"Limits: T² {report['t2_limit']:.3f} (new-sample form), Q {report['q_limit']:.3f}.")
     lines.append("Flags are statistical evidence under the model's assumptions; follow your validated release procedure.")
-    lines += [f"Note: {w}" for w in report["warnings"]]
+    lines += [f"Note: {in_cli_words(w)}" for w in report["warnings"]]
     return "\n".join(lines)
 
 

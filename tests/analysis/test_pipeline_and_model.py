@@ -39,7 +39,8 @@ def test_report_matches_scikit_learn_on_iris(iris_table):
     sk = PCA().fit(_autoscaled_iris())
     np.testing.assert_allclose(report["eigenvalues"], sk.explained_variance_, rtol=1e-10)
     np.testing.assert_allclose(report["explained_variance_ratio"], sk.explained_variance_ratio_, rtol=1e-10)
-    assert report["components"] == 2 and set(report["scores"]) == {"PC1", "PC2"}
+    assert report["components"] == 2 and report["kept"] == ["PC1", "PC2"]
+    assert set(report["scores"]) == {"PC1", "PC2", "PC3", "PC4"}  # every computed component
     sk_scores = sk.transform(_autoscaled_iris())[:, 0]
     ours = np.array(report["scores"]["PC1"])
     assert abs(np.dot(ours, sk_scores)) == pytest.approx(np.dot(sk_scores, sk_scores), rel=1e-10)

@@ -6,6 +6,8 @@ the cached compute layer and the tests share one engine.
 
 from webapp.analysis.errors import OrdinateError
 
-ENGINE_VERSION = "2"
+# Part of every cache key and saved model: bump when any number could change.
+# 3: iterative imputation stops on a unit-free rule (accelerated), Kaiser K over all p.
+ENGINE_VERSION = "3"
 
 __all__ = ["ENGINE_VERSION", "OrdinateError"]

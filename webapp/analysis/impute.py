@@ -7,18 +7,33 @@ reconstruction. This is the alternating least-squares / EM scheme described by
 Kiers (1997, Psychometrika 62:251-266) and Walczak & Massart (2001,
 Chemometrics Intell. Lab. Syst. 58:15-27); observed cells are never changed.
 
-K is chosen on the mean-filled data as the number of eigenvalues above the
-mean eigenvalue (Kaiser's rule), at least 1 and at most p - 1, so that the
-model cannot simply reproduce the filled values.
+K is chosen on the mean-filled data as the number of covariance eigenvalues
+above their mean, trace / p (Kaiser's rule, as in :mod:`webapp.analysis.selection`),
+at least 1 and at most p - 1, so that the model cannot simply reproduce the
+filled values.
+
+Convergence is judged without units: each round's change of the filled cells
+is measured in standard deviations of their variable (observed values), and
+the distance still to go is estimated from the shrinking of successive steps
+(for a linearly converging iteration it is about step / (1 - rate)). The data
+are first divided by one power of two near their typical spread, which changes
+no model. A common change of unit of all variables therefore changes the filled
+values only by the factor itself, up to the tolerance; slowly converging data
+(no scaling, one variable dominating) may take a different number of rounds.
+
+A filled value outside the range observed for its variable is an
+extrapolation of the linear model; the count per variable is returned so that
+callers can say so.
 """
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
 
-DEFAULT_TOLERANCE = 1e-7
+DEFAULT_TOLERANCE = 1e-9
 DEFAULT_MAX_ITERATIONS = 1000
 
 
@@ -28,6 +43,7 @@ class ImputationResult:
     n_components: int
     iterations: int
     converged: bool
+    outside_range: np.ndarray  # per variable: filled cells outside its observed [min, max]
 
 
 def iterative_pca_impute(
@@ -41,32 +57,107 @@ def iterative_pca_impute(
 ) -> ImputationResult:
     """Fill NaN cells of ``values`` (n x p). Returns a new array.
 
-    Convergence: the root-mean-square change of the filled cells between two
-    rounds, relative to the overall standard deviation of the scaled data, is
-    below ``tolerance``.
+    Convergence: the estimated remaining distance to the fixed point, as a
+    root-mean-square over the filled cells in standard deviations of their
+    variable, is below ``tolerance``.
     """
     missing = np.isnan(values)
-    filled = np.where(missing, np.nanmean(values, axis=0), values)
     if not missing.any():
-        return ImputationResult(filled, 0, 0, True)
+        return ImputationResult(values.copy(), 0, 0, True, np.zeros(values.shape[1], dtype=int))
+    # One power of two for all variables: an exact division that changes no
+    # model (every scaling treats a common factor alike), so that data in
+    # other units take the same rounds through the same floating-point range.
+    common = _common_power_of_two(_observed_spread(values))
+    result = _impute_in_common_unit(values / common, missing, centring, scaling, n_components, tolerance,
+                                    max_iterations)
+    result.values[...] *= common  # in place: the result is frozen, its array is ours
+    return result
+
+
+def _impute_in_common_unit(values, missing, centring, scaling, n_components, tolerance, max_iterations):
+    filled = np.where(missing, np.nanmean(values, axis=0), values)
     k = n_components or _kaiser_components(filled, centring, scaling)
-    previous = filled[missing]
-    missing_columns = np.nonzero(missing)[1]
-    for iteration in range(1, max_iterations + 1):
+    unit = _observed_spread(values)[np.nonzero(missing)[1]]
+
+    def update(guess: np.ndarray) -> np.ndarray:
+        filled[missing] = guess
         centre, scale = _centre_scale(filled, centring, scaling)
-        reconstructed = _rank_k_reconstruction((filled - centre) / scale, k) * scale + centre
-        filled[missing] = reconstructed[missing]
-        change = np.sqrt(np.mean(((filled[missing] - previous) / scale[missing_columns]) ** 2))
-        previous = filled[missing]
-        if change < tolerance:
-            return ImputationResult(filled, k, iteration, True)
-    return ImputationResult(filled, k, max_iterations, False)
+        return (_rank_k_reconstruction((filled - centre) / scale, k) * scale + centre)[missing]
+
+    guess, rounds, converged = _accelerated_fixed_point(update, filled[missing], unit, tolerance, max_iterations)
+    filled[missing] = guess
+    return ImputationResult(filled, k, rounds, converged, _outside_observed_range(values, filled, missing))
+
+
+def _accelerated_fixed_point(update, guess, unit, tolerance, max_rounds):
+    """Iterate ``guess = update(guess)`` to its fixed point, with SQUAREM steps.
+
+    Plain EM-style rounds can converge very slowly (a rate near 1 when the
+    model is dominated by a variable of large variance). SQUAREM (Varadhan &
+    Roland 2008, Scand. J. Statist. 35:335-353, scheme S3) extrapolates along
+    two plain rounds and then takes a plain round from the extrapolated point,
+    which keeps the fixed point of the plain iteration. The distance still to
+    go is estimated from the two plain rounds: |r| / (1 - rate), with
+    rate = |second step| / |first step|, in standard deviations of each
+    filled cell's variable. Returns (fixed point, rounds used, converged).
+    """
+    rounds = 0
+    while rounds + 3 <= max_rounds:
+        once = update(guess)
+        twice = update(once)
+        rounds += 2
+        first, second = (once - guess) / unit, (twice - once) / unit
+        if _remaining(_rms(second), _rms(first)) < tolerance:
+            return twice, rounds, True
+        curvature = second - first
+        alpha = -_rms(first) / max(_rms(curvature), np.finfo(float).tiny)
+        alpha = min(alpha, -1.0)  # -1 is two plain rounds; never step back
+        jumped = guess - 2 * alpha * (once - guess) + alpha**2 * (twice - 2 * once + guess)
+        guess = update(jumped)
+        rounds += 1
+    return guess, rounds, False
+
+
+def _common_power_of_two(spread: np.ndarray) -> float:
+    return float(2.0 ** np.round(np.log2(np.median(spread))))
+
+
+def _rms(vector: np.ndarray) -> float:
+    return float(np.sqrt(np.mean(vector**2)))
+
+
+def _remaining(step: float, last_step: float) -> float:
+    """Estimated distance to the fixed point after ``step``, for linear convergence."""
+    if step == 0.0:
+        return 0.0
+    if step >= last_step:
+        return float("inf")  # not shrinking: no estimate
+    return step / (1.0 - step / last_step)
+
+
+def _observed_spread(values: np.ndarray) -> np.ndarray:
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # a column with one observed value
+        spread = np.nanstd(values, axis=0, ddof=1)
+    magnitude = np.nanmax(np.abs(values), axis=0)
+    usable = np.isfinite(spread) & (spread > 1e-12 * magnitude)
+    # A variable with no observed spread: its magnitude, else 1, sets the unit.
+    fallback = np.where(magnitude > 0, magnitude, 1.0)
+    return np.where(usable, spread, fallback)
+
+
+def _outside_observed_range(values: np.ndarray, filled: np.ndarray, missing: np.ndarray) -> np.ndarray:
+    low, high = np.nanmin(values, axis=0), np.nanmax(values, axis=0)
+    outside = missing & ((filled < low) | (filled > high))
+    return outside.sum(axis=0)
 
 
 def _kaiser_components(filled: np.ndarray, centring: str, scaling: str) -> int:
     centre, scale = _centre_scale(filled, centring, scaling)
-    eigenvalues = np.linalg.svd((filled - centre) / scale, compute_uv=False) ** 2
-    count = int(np.sum(eigenvalues > eigenvalues.mean()))
+    squared = np.linalg.svd((filled - centre) / scale, compute_uv=False) ** 2
+    # Kaiser: eigenvalues above their mean over all p variables (trace / p),
+    # which differs from the mean of the min(n, p) non-trivial ones when n < p.
+    count = int(np.sum(squared > squared.sum() / filled.shape[1]))
     return int(np.clip(count, 1, max(filled.shape[1] - 1, 1)))
 
 

@@ -63,6 +63,7 @@ class Projection:
     filled_cells: int
     extra_columns: tuple[str, ...]
     warnings: tuple[str, ...]
+    refused_samples: tuple[str, ...] = ()  # not scored: a value outside its transform's domain
 
 
 def model_from_analysis(analysis: Analysis) -> ReferenceModel:
@@ -172,7 +173,16 @@ def project_table(model: ReferenceModel, table, confidence: float | None = None)
     confidence = model.confidence if confidence is None else confidence
     frame = table.frame
     extra = tuple(c for c in table.numeric_columns if c not in model.variables and c != table.id_column)
-    matrix, filled = model.preprocessor.transform_frame(frame)
+    matrix, filled, refused = model.preprocessor.transform_batch(frame)
+    labels = tuple(table.sample_labels())
+    if len(refused) == len(labels):
+        raise OrdinateError(
+            f"No new sample can be scored: every one has a value its transform cannot take "
+            f"(for example sample '{labels[0]}': {refused[0]})."
+        )
+    kept = np.ones(len(labels), dtype=bool)
+    kept[list(refused)] = False
+    matrix = matrix[kept]
     scores = matrix @ model.loadings
     residual = matrix - scores @ model.loadings.T
     q = np.einsum("ij,ij->i", residual, residual)
@@ -181,9 +191,9 @@ def project_table(model: ReferenceModel, table, confidence: float | None = None)
         warnings.append(f"{filled} missing value(s) in the new samples were set to the reference mean.")
     if extra:
         warnings.append(f"Ignored column(s) the model does not use: {', '.join(extra)}.")
-    labels = tuple(table.sample_labels())
+    warnings += [f"Not scored: sample '{labels[row]}': {reason}." for row, reason in refused.items()]
     return Projection(
-        sample_labels=labels,
+        sample_labels=tuple(label for label, keep in zip(labels, kept) if keep),
         matrix=matrix,
         scores=scores,
         t2=hotelling_t2(scores, model.eigenvalues),
@@ -193,6 +203,7 @@ def project_table(model: ReferenceModel, table, confidence: float | None = None)
         filled_cells=filled,
         extra_columns=extra,
         warnings=tuple(warnings),
+        refused_samples=tuple(labels[row] for row in refused),
     )
 
 
@@ -214,6 +225,7 @@ def projection_report(model: ReferenceModel, projection: Projection) -> dict:
         "t2_flagged": [s for s, v in zip(projection.sample_labels, projection.t2) if v > projection.t2_limit],
         "q_flagged": [s for s, v in zip(projection.sample_labels, projection.q) if v > projection.q_limit],
         "extra_columns": list(projection.extra_columns),
+        "refused_samples": list(projection.refused_samples),
         "warnings": list(projection.warnings),
     }
 

@@ -27,7 +27,7 @@ from webapp.analysis.pca import PCAFit, fit_pca
 from webapp.analysis.recipe import PreparedData, Recipe, prepare
 from webapp.analysis.selection import ComponentAdvice, advise_components
 
-REPORT_VERSION = 1
+REPORT_VERSION = 2  # 2: loadings and scores of every computed component, `kept` names K of them
 MAX_REPORTED_EIGENVALUES = 1000
 # Parallel analysis repeats the eigendecomposition once per permutation; keep
 # its cost near a few passes over the data for large tables.
@@ -179,7 +179,8 @@ def analysis_report(analysis: Analysis, table=None) -> dict:
     fitted, diag = analysis.fitted, analysis.diagnostics
     pca, prepared = fitted.pca, fitted.prepared
     k = diag.components
-    names = [f"PC{a + 1}" for a in range(k)]
+    # Every computed component, so that PC2's loadings can be read when K = 1.
+    names = [f"PC{a + 1}" for a in range(pca.loadings.shape[1])]
     reported = min(pca.eigenvalues.size, MAX_REPORTED_EIGENVALUES if pca.n_variables <= MAX_REPORTED_EIGENVALUES else 100)
     return {
         "version": REPORT_VERSION,
@@ -197,6 +198,8 @@ def analysis_report(analysis: Analysis, table=None) -> dict:
         "explained_variance_ratio": _floats(pca.explained_variance_ratio[:reported]),
         "cumulative_explained": _floats(pca.cumulative_explained[:reported]),
         "components": k,
+        "computed_components": len(names),
+        "kept": names[:k],
         "loadings": {
             name: dict(zip(prepared.variables, _floats(pca.loadings[:, a]))) for a, name in enumerate(names)
         },

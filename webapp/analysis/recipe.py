@@ -141,18 +141,34 @@ class Preprocessor:
         centring), the usual single-imputation for scoring; the count is returned
         so callers can report it.
         """
+        values, filled, refused = self.transform_batch(frame)
+        if refused:
+            row, reason = next(iter(refused.items()))
+            raise OrdinateError(f"Cannot score sample {row + 1}: {reason}.")
+        return values, filled
+
+    def transform_batch(self, frame: pd.DataFrame) -> tuple[np.ndarray, int, dict[int, str]]:
+        """As :meth:`transform_frame`, but a row with a value outside its transform's domain is refused, not the batch.
+
+        Returns (values, filled cells, {row position: reason}); refused rows keep
+        NaN in ``values`` and are not counted as filled.
+        """
         missing_columns = [v for v in self.variables if v not in frame.columns]
         if missing_columns:
             raise OrdinateError(
                 "The new data lacks variable(s) the model needs: " + _short_list(missing_columns) + "."
             )
         values = _numeric_block(frame, self.variables)
+        refused = _domain_reasons(values, self.variables, self.transforms)
+        rows = np.fromiter(refused, dtype=int, count=len(refused))
+        values[rows] = np.nan
         _apply_transforms(values, self.variables, self.transforms, labels=None)
         values -= self.centre
         values /= self.scale
         missing = ~np.isfinite(values)
+        missing[rows] = False
         values[missing] = 0.0
-        return values, int(missing.sum())
+        return values, int(missing.sum()), refused
 
 
 @dataclass(frozen=True, eq=False)
@@ -313,13 +329,29 @@ def _apply_transforms(values: np.ndarray, variables, transforms, labels) -> None
         if bad.any():
             first = int(np.flatnonzero(bad)[0])
             where = f" (first at sample '{labels[first]}': {column[first]:g})" if labels is not None else ""
-            need = "greater than -1" if transform == "log1p" else ("zero or more" if transform == "sqrt" else "greater than zero")
             raise OrdinateError(
-                f"Cannot apply {transform} to '{variable}': {int(bad.sum())} value(s) are not {need}{where}. "
+                f"Cannot apply {transform} to '{variable}': {int(bad.sum())} value(s) are not "
+                f"{_domain_words(transform)}{where}. "
                 "Choose another transform for this variable or fix the values."
             )
         with np.errstate(invalid="ignore", divide="ignore"):
             values[:, j] = {"log10": np.log10, "ln": np.log, "log1p": np.log1p, "sqrt": np.sqrt}[transform](column)
+
+
+def _domain_reasons(values: np.ndarray, variables, transforms) -> dict[int, str]:
+    """For each row with a value its transform cannot take, which values and why."""
+    reasons: dict[int, list[str]] = {}
+    for j, (variable, transform) in enumerate(zip(variables, transforms)):
+        if transform == "none":
+            continue
+        for row in np.flatnonzero(_domain_violations(values[:, j], transform)):
+            reasons.setdefault(int(row), []).append(
+                f"'{variable}' = {values[row, j]:g} is not {_domain_words(transform)} ({transform})")
+    return {row: "; ".join(parts) for row, parts in sorted(reasons.items())}
+
+
+def _domain_words(transform: str) -> str:
+    return "greater than -1" if transform == "log1p" else ("zero or more" if transform == "sqrt" else "greater than zero")
 
 
 def _domain_violations(column: np.ndarray, transform: str) -> np.ndarray:
@@ -367,7 +399,20 @@ def _handle_missing(values, labels, positions, variables, recipe: Recipe, warnin
             f"Filled {count} missing value(s) by iterative PCA imputation "
             f"({result.n_components} component(s), {state})."
         )
+        if note := _extrapolation_note(variables, result.outside_range):
+            warnings.append(note)
     return values, labels, positions, (), missing
+
+
+def _extrapolation_note(variables, outside_range) -> str | None:
+    counts = [f"'{variable}': {int(n)}" for variable, n in zip(variables, outside_range) if n]
+    if not counts:
+        return None
+    shown = ", ".join(counts[:6]) + (f" and {len(counts) - 6} more variables" if len(counts) > 6 else "")
+    return (
+        f"{int(sum(outside_range))} filled value(s) lie outside the range observed for their variable "
+        f"({shown}): the linear model extrapolates there, so treat them with care."
+    )
 
 
 def _require_shape(n_samples: int, n_variables: int, recipe: Recipe) -> None:
