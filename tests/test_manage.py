@@ -40,13 +40,18 @@ def deleted() -> list:
 
 
 @pytest.fixture
-def client(store, deleted):
+def app(store, deleted) -> flask.Flask:
     app = flask.Flask("manage-test")
     app.testing = True
     register_manage_routes(app, store, on_delete=deleted.append)
     # Dash answers every other GET path with its page; the manage routes must win
     # for anything under /manage/, however malformed.
     app.add_url_rule("/<path:path>", endpoint="catchall", view_func=lambda path: DASH_PAGE)
+    return app
+
+
+@pytest.fixture
+def client(app):
     return app.test_client()
 
 
@@ -82,7 +87,7 @@ def test_link_format(dataset):
 
 def test_page_shows_the_dataset_and_its_views(client, dataset):
     record, views = dataset
-    response = client.get(manage_link(record))
+    response = client.get(manage_link(record), follow_redirects=True)
     assert response.status_code == 200
     text = response.get_data(as_text=True)
     for expected in ("Cereal lots", "cereal lots 2024.csv", f"{len(CSV)} bytes", record.content_hash,
@@ -97,11 +102,50 @@ def test_page_shows_the_dataset_and_its_views(client, dataset):
     assert response.headers["Referrer-Policy"] == "no-referrer"
 
 
+def test_the_first_visit_trades_the_key_for_a_cookie_and_a_key_free_address(client, dataset):
+    # Issue: the key travelled in every GET address (browser history, proxy logs).
+    record, _ = dataset
+    first = client.get(manage_link(record))
+    assert first.status_code == 303 and first.headers["Location"] == f"/manage/{record.token}"
+    cookie = first.headers["Set-Cookie"]
+    assert cookie.startswith(f"ordinate_manage_key={record.manage_key};")
+    assert f"Path=/manage/{record.token}" in cookie and "HttpOnly" in cookie and "SameSite=Lax" in cookie
+    assert "Expires" not in cookie and "Max-Age" not in cookie  # gone when the browser closes
+    assert first.headers["Cache-Control"] == "no-store" and first.headers["Referrer-Policy"] == "no-referrer"
+    page = client.get(f"/manage/{record.token}")
+    assert page.status_code == 200 and record.filename in page.get_data(as_text=True)
+    assert "Secure" not in cookie  # plain HTTP on loopback; over HTTPS the cookie is Secure:
+    secure = client.get(manage_link(record), base_url="https://ordinate.example")
+    assert "Secure" in secure.headers["Set-Cookie"]
+
+
+def test_the_key_free_address_needs_the_cookie_of_that_dataset(app, store, dataset):
+    record, _ = dataset
+    other = store.add_bytes(b"a,b\n1,2\n3,4\n", "other.csv")
+    fresh = app.test_client()
+    assert fresh.get(f"/manage/{record.token}").status_code == 404  # no cookie: as a wrong key
+    fresh.get(manage_link(record))
+    assert fresh.get(f"/manage/{other.token}").status_code == 404  # the cookie is scoped to one dataset
+    forged = app.test_client()
+    forged.set_cookie("ordinate_manage_key", record.manage_key, path=f"/manage/{other.token}")
+    assert forged.get(f"/manage/{other.token}").status_code == 404  # and holds that dataset's key only
+
+
+def test_the_cookie_never_authorises_a_post(client, store, dataset):
+    # Rename and delete read the key from the form only: another site's form cannot use the cookie.
+    record, _ = dataset
+    client.get(manage_link(record))
+    before = snapshot(store, record)
+    assert client.post(f"/manage/{record.token}/delete", data={"confirm": "yes"}).status_code == 404
+    assert client.post(f"/manage/{record.token}/rename", data={"title": "X"}).status_code == 404
+    assert snapshot(store, record) == before
+
+
 def test_user_text_is_escaped(client, store):
     record = store.add_bytes(CSV, '<img src=x onerror="alert(2)">.csv', title="<script>alert(1)</script>")
     store.save_view(record.token, "v=1", title='"><b>bold</b>', author="<i>me</i>",
                     content_hash=record.content_hash, engine_version="test")
-    text = client.get(manage_link(record)).get_data(as_text=True)
+    text = client.get(manage_link(record), follow_redirects=True).get_data(as_text=True)
     assert "<script>alert(1)</script>" not in text
     assert html.escape("<script>alert(1)</script>") in text
     assert "<img src=x" not in text and "<b>bold</b>" not in text and "<i>me</i>" not in text
@@ -115,7 +159,7 @@ def test_rename_with_the_key(client, store, dataset):
     record, views = dataset
     response = client.post(f"/manage/{record.token}/rename", data={"key": record.manage_key, "title": "Lots, May"})
     assert response.status_code == 303
-    assert response.headers["Location"] == f"/manage/{record.token}?key={record.manage_key}&saved=name"
+    assert response.headers["Location"] == f"/manage/{record.token}?saved=name"  # no key in the address
     assert store.dataset(record.token).title == "Lots, May"
     assert [v.view_id for v in store.views_for_dataset(record.token)] == [v.view_id for v in views]
     after = client.get(response.headers["Location"]).get_data(as_text=True)
@@ -162,7 +206,7 @@ def test_wrong_keys_do_not_open_the_page(client, dataset):
     record, views = dataset
     for name, key in wrong_keys(record, views).items():
         url = f"/manage/{record.token}" if key is None else page_url(record, key)
-        response = client.get(url)
+        response = client.get(url, follow_redirects=True)
         assert response.status_code == 404, name
         assert record.filename not in response.get_data(as_text=True)
 
@@ -259,7 +303,7 @@ def test_delete_removes_the_dataset_its_views_and_its_file(client, store, datase
     assert not blob.exists()
     assert deleted == [record]
     # The link itself is dead now, and a second delete finds nothing.
-    assert client.get(manage_link(record)).status_code == 404
+    assert client.get(manage_link(record), follow_redirects=True).status_code == 404
     again = client.post(f"/manage/{record.token}/delete", data={"key": record.manage_key, "confirm": "yes"})
     assert again.status_code == 404 and deleted == [record]
 

@@ -94,3 +94,33 @@ def test_ipv6_addresses_of_one_64_network_share_a_budget():
     assert client_bucket("2001:db8:1:2::1") == client_bucket("2001:db8:1:2:ffff::9")
     assert client_bucket("2001:db8:1:3::1") != client_bucket("2001:db8:1:2::1")
     assert client_bucket("::ffff:192.0.2.7") == client_bucket("192.0.2.7")
+
+
+def test_behind_a_trusted_proxy_each_client_has_its_own_budget(app, monkeypatch):
+    # Every request reaches Ordinate from the proxy (here on loopback, trusted by default,
+    # as gunicorn trusts it for X-Forwarded-Proto); one guesser must not lock out the team.
+    monkeypatch.delenv("FORWARDED_ALLOW_IPS", raising=False)
+    client = app.server.test_client()
+
+    def through_proxy(key, client_address, sent_by_client=""):
+        chain = f"{sent_by_client}, {client_address}" if sent_by_client else client_address
+        return client.post("/sign-in", data={"key": key, "next": "/"},
+                           environ_base={"REMOTE_ADDR": "127.0.0.1"}, headers={"X-Forwarded-For": chain})
+
+    for _ in range(FAILURE_BUDGET):
+        through_proxy(WRONG, "203.0.113.9")
+    assert through_proxy(WRONG, "203.0.113.9").status_code == 429
+    assert through_proxy(KEY, "203.0.113.10").status_code == 303  # a colleague behind the same proxy
+    # A guesser cannot escape its block by sending its own X-Forwarded-For: the proxy appends the real one.
+    assert through_proxy(WRONG, "203.0.113.9", sent_by_client="198.51.100.77").status_code == 429
+
+
+def test_a_forwarded_address_from_an_untrusted_peer_is_ignored(app, monkeypatch):
+    monkeypatch.setenv("FORWARDED_ALLOW_IPS", "10.0.0.5")
+    client = app.server.test_client()
+    for n in range(FAILURE_BUDGET):
+        client.post("/sign-in", data={"key": WRONG, "next": "/"}, environ_base={"REMOTE_ADDR": "192.0.2.50"},
+                    headers={"X-Forwarded-For": f"198.51.100.{n}"})  # a direct client making up addresses
+    answer = client.post("/sign-in", data={"key": WRONG, "next": "/"}, environ_base={"REMOTE_ADDR": "192.0.2.50"},
+                         headers={"X-Forwarded-For": "198.51.100.99"})
+    assert answer.status_code == 429

@@ -4,7 +4,8 @@ Every dataset has two secrets (see :mod:`webapp.storage`): its ``token``, which
 opens the analysis and goes into every shared link, and its ``manage_key``,
 which only the uploader receives, in the link :func:`manage_link` builds::
 
-    GET  /manage/<token>?key=<manage_key>      the page
+    GET  /manage/<token>?key=<manage_key>      first visit: key exchanged for a cookie, 303 to
+    GET  /manage/<token>                       the page (the key comes from the cookie)
     POST /manage/<token>/rename                form fields: key, title
     POST /manage/<token>/delete                form fields: key, confirm=yes
 
@@ -15,13 +16,19 @@ Rules:
   token and any other path under ``/manage/`` all get the same plain 404 page,
   so nobody can learn whether a dataset exists. The dataset token and view ids
   are different secrets and never work as the key.
+* The key appears in an address once: the first visit stores it in a cookie
+  scoped to that dataset's page (``Path=/manage/<token>``, ``HttpOnly``,
+  ``SameSite=Lax``, ``Secure`` over HTTPS, gone when the browser closes) and
+  redirects to the key-free address, and every later address (after a rename
+  too) is key-free. So the key does not pile up in browser history and proxy
+  logs. ``Lax`` still sends the cookie when the link is followed from a mail
+  or chat (a top-level GET from another site), never with another site's POST.
 * Cross-site request forgery: the two POST routes read the key from the form
-  body only. A page on another site cannot know the key, so it cannot forge a
-  rename or delete (the secret plays the part of a CSRF token; OWASP CSRF
-  Prevention Cheat Sheet, "synchronizer token pattern").
-* The key is in the page's URL, so the page is sent with ``Cache-Control:
-  no-store`` and ``Referrer-Policy: no-referrer`` (links from it do not pass the
-  URL on), and it is marked ``noindex``.
+  body only, never from the cookie. A page on another site cannot know the
+  key, so it cannot forge a rename or delete (the secret plays the part of a
+  CSRF token; OWASP CSRF Prevention Cheat Sheet, "synchronizer token pattern").
+* The page is sent with ``Cache-Control: no-store`` and ``Referrer-Policy:
+  no-referrer`` (its forms hold the key), and it is marked ``noindex``.
 * User text (names, file names, view titles, authors) is HTML-escaped; no file
   path is ever built from the request: tokens are validated by the store.
 """
@@ -41,6 +48,7 @@ from webapp.storage import DataStore, DatasetRecord, SavedView, is_token
 __all__ = ["MANAGE_PREFIX", "manage_link", "register_manage_routes"]
 
 MANAGE_PREFIX = "/manage"
+KEY_COOKIE = "ordinate_manage_key"
 _MAX_KEY_CHARS = 128
 _MAX_TITLE_CHARS = 1000  # the store keeps 200; this bounds what is even looked at
 
@@ -93,7 +101,12 @@ def register_manage_routes(server: flask.Flask, store: DataStore, *, on_delete: 
         if not is_token(token):
             return _not_found()
         if len(parts) == 1 and request.method in ("GET", "HEAD"):
-            key = request.args.get("key", "")
+            if "key" in request.args:  # the link as received: keep the key, drop it from the address
+                key = request.args.get("key", "")
+                if not _key_ok(store, token, key):
+                    return _not_found()
+                return _with_key_cookie(flask.redirect(_page_address(token), code=303), token, key)
+            key = request.cookies.get(KEY_COOKIE, "")
             if not _key_ok(store, token, key):
                 return _not_found()
             notice = RENAMED_TEXT if request.args.get("saved") == "name" else None
@@ -113,6 +126,16 @@ def register_manage_routes(server: flask.Flask, store: DataStore, *, on_delete: 
                         methods=["GET", "POST"], provide_automatic_options=False, strict_slashes=False)
 
 
+def _page_address(token: str, query: str = "") -> str:
+    return f"{MANAGE_PREFIX}/{quote(token, safe='')}" + (f"?{query}" if query else "")
+
+
+def _with_key_cookie(response: flask.Response, token: str, key: str) -> flask.Response:
+    response.set_cookie(KEY_COOKIE, key, path=_page_address(token), httponly=True, samesite="Lax",
+                        secure=flask.request.is_secure)
+    return _private(response)
+
+
 def _key_ok(store: DataStore, token: str, key: object) -> bool:
     return isinstance(key, str) and 0 < len(key) <= _MAX_KEY_CHARS and store.check_manage_key(token, key)
 
@@ -121,8 +144,8 @@ def _rename(store: DataStore, token: str, key: str) -> flask.Response:
     title = flask.request.form.get("title", "")[:_MAX_TITLE_CHARS]
     if store.rename_dataset(token, title) is None:
         return _not_found()
-    location = f"{MANAGE_PREFIX}/{quote(token, safe='')}?key={quote(key, safe='')}&saved=name"
-    return _private(flask.redirect(location, code=303))
+    # The cookie again: the page may have been opened before this browser had it (a kept tab).
+    return _with_key_cookie(flask.redirect(_page_address(token, "saved=name"), code=303), token, key)
 
 
 def _delete(store: DataStore, token: str, key: str, on_delete: OnDelete | None) -> flask.Response:

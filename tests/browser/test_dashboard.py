@@ -303,3 +303,29 @@ def test_data_summary_stays_closed_after_upload_and_closes_on_outside_click_and_
     dash_duo.find_element("#dataset-details .summary-table").click()
     time.sleep(0.3)
     assert _summary_open(dash_duo.driver)
+
+
+def test_the_dashboard_works_under_its_content_security_policy(dash_duo, app, iris_csv):
+    # The policy forbids inline scripts other than Dash's own (allowed by hash) and any
+    # outside origin; a violation would leave plots or clientside callbacks dead and
+    # log "Refused to ..." in the console.
+    import requests
+
+    dash_duo.start_server(app)
+    policy = requests.get(dash_duo.server_url, timeout=30).headers["Content-Security-Policy"]
+    assert "script-src 'self'" in policy and "'sha256-" in policy and "frame-ancestors 'none'" in policy
+    dash_duo.wait_for_element("#scores-graph .js-plotly-plot", timeout=TIMEOUT)
+    _upload(dash_duo, iris_csv)
+    dash_duo.wait_for_text_to_equal(FIRST_EIGENVALUE, "2.9185", timeout=TIMEOUT)
+    drawn_points = _wait_for(lambda: dash_duo.driver.execute_script(
+        "const plot = document.querySelector('#scores-graph .js-plotly-plot');"
+        "return plot && plot._fullData && plot._fullData.filter(t => (t.mode || '').includes('markers'))"
+        ".reduce((n, t) => n + (t.x ? t.x.length : 0), 0);"))
+    assert drawn_points >= 150  # every iris sample drawn (plus any picked-sample ring)
+    dash_duo.find_element("#dataset-details summary").click()  # asset script and clientside code run
+    _wait_for(lambda: _summary_open(dash_duo.driver))
+    dash_duo.find_element("#dataset-details summary").send_keys(Keys.ESCAPE)
+    _wait_for(lambda: not _summary_open(dash_duo.driver))
+    refused = [entry["message"] for entry in dash_duo.driver.get_log("browser")
+               if "Content Security Policy" in entry["message"] or "Refused to" in entry["message"]]
+    assert refused == []

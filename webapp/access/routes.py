@@ -48,7 +48,7 @@ from webapp.access.pages import (
     sign_out_page,
     too_many_attempts_message,
 )
-from webapp.access.throttle import THROTTLE_DIR_NAME, Clock, SignInThrottle
+from webapp.access.throttle import THROTTLE_DIR_NAME, Clock, SignInThrottle, client_address
 
 log = logging.getLogger("ordinate.access")
 
@@ -295,20 +295,21 @@ def register_access_control(server: flask.Flask, *, access_key: str | None, secr
         next_path = safe_next(request.form.get("next", "/"))
         if _cross_site(request):
             return html_response(sign_in_page(next_path, CROSS_SITE_MESSAGE), 403)
+        address = client_address(request.remote_addr, request.headers.get("X-Forwarded-For"))
         # A blocked address is answered before its key is even looked at.
-        retry_after = throttle.retry_after(request.remote_addr)
+        retry_after = throttle.retry_after(address)
         if retry_after:
             return too_many_attempts(next_path, retry_after)
         offered = request.form.get("key", "").strip()[:MAX_KEY_LENGTH].encode("utf-8")
         if not hmac.compare_digest(offered, expected_key):
-            log.info("failed sign-in from %s", request.remote_addr)
-            retry_after = throttle.record_failure(request.remote_addr)
+            log.info("failed sign-in from %s", address)
+            retry_after = throttle.record_failure(address)
             if retry_after:
                 log.warning("sign-in from %s blocked for %d s after repeated wrong keys",
-                            request.remote_addr, retry_after)
+                            address, retry_after)
                 return too_many_attempts(next_path, retry_after)
             return html_response(sign_in_page(next_path, WRONG_KEY_MESSAGE), 401)
-        throttle.forget(request.remote_addr)
+        throttle.forget(address)
         response = _see_other(next_path)
         response.set_cookie(
             COOKIE_NAME, serializer.dumps({"k": fingerprint}), max_age=COOKIE_MAX_AGE_SECONDS,

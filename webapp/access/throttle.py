@@ -15,6 +15,12 @@ Rules (see docs/deployment.md):
   so does one that signs in with the right key.
 * IPv6 clients are counted per /64 network: one host usually holds a whole
   /64 and could otherwise step through its addresses (common practice).
+* Behind a reverse proxy every request comes from the proxy, so one guesser
+  would block the whole team. When the peer is a proxy gunicorn trusts
+  (``FORWARDED_ALLOW_IPS``, default ``127.0.0.1,::1``), the client is the last
+  address in ``X-Forwarded-For``, the one that proxy added
+  (:func:`client_address`); a client cannot forge it, since the proxy appends
+  the address it saw to whatever the client sent.
 
 The counts live in a diskcache store in the data directory, so the budget
 holds across gunicorn workers; each update is one SQLite transaction. If that
@@ -27,6 +33,7 @@ from __future__ import annotations
 import ipaddress
 import logging
 import math
+import os
 import sqlite3
 import time
 from dataclasses import dataclass
@@ -43,6 +50,7 @@ __all__ = [
     "FORGET_AFTER_SECONDS",
     "THROTTLE_DIR_NAME",
     "SignInThrottle",
+    "client_address",
     "client_bucket",
 ]
 
@@ -68,6 +76,19 @@ class _Record:
     blocks: int = 0
     blocked_until: float = 0.0
     last_failure: float = 0.0
+
+
+def client_address(remote_addr: str | None, forwarded_for: str | None,
+                   trusted_proxies: str | None = None) -> str | None:
+    """The address to count a sign-in under: the peer, or the client a trusted proxy saw."""
+    if trusted_proxies is None:
+        trusted_proxies = os.environ.get("FORWARDED_ALLOW_IPS", "127.0.0.1,::1")
+    trusted = {entry.strip() for entry in trusted_proxies.split(",")}
+    if forwarded_for and ("*" in trusted or (remote_addr or "") in trusted):
+        last = forwarded_for.split(",")[-1].strip()
+        if last:
+            return last
+    return remote_addr
 
 
 def client_bucket(address: str | None) -> str:
