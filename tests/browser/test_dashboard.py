@@ -329,3 +329,37 @@ def test_the_dashboard_works_under_its_content_security_policy(dash_duo, app, ir
     refused = [entry["message"] for entry in dash_duo.driver.get_log("browser")
                if "Content Security Policy" in entry["message"] or "Refused to" in entry["message"]]
     assert refused == []
+
+
+GRAPH_IDS = ("scores-graph", "variance-graph", "diagnostics-graph", "loadings-graph", "circle-graph")
+TRACE_COUNT_JS = """
+const plot = document.querySelector('#' + arguments[0] + ' .js-plotly-plot');
+return plot && plot.data ? plot.data.length : 0;
+"""
+
+
+def test_a_file_that_cannot_be_drawn_never_leaves_the_demo_numbers_under_its_name(dash_duo, app, tmp_path):
+    # The ±1e308 file of the hardening report showed the demo's variance, diagnostics and
+    # loadings under the new file's name. Refused (its values overflow) or drawn: the
+    # numbers on screen always belong to the dataset named above them.
+    dash_duo.start_server(app)
+    dash_duo.wait_for_element("#scores-graph .js-plotly-plot", timeout=TIMEOUT)
+    _wait_for_parallel_analysis(dash_duo.driver)
+    demo_title = dash_duo.find_element("#dataset-title").text
+    demo_eigenvalue = dash_duo.find_element(FIRST_EIGENVALUE).text
+    demo_address = dash_duo.driver.current_url
+    huge = tmp_path / "huge.csv"
+    huge.write_text("a,b\n1,2\n-1e308,5\n2,1\n1e308,4\n")
+    _upload(dash_duo, huge)
+    status = _wait_for(lambda: "huge.csv" in dash_duo.find_element("#upload-status").text
+                       and dash_duo.find_element("#upload-status").text)
+    time.sleep(1.0)  # let any redraw the upload started arrive
+    title = dash_duo.find_element("#dataset-title").text
+    if "huge.csv" in title:
+        for graph in GRAPH_IDS:
+            assert dash_duo.driver.execute_script(TRACE_COUNT_JS, graph) == 0, graph
+        assert demo_eigenvalue not in _text(dash_duo.driver, "#variance-table-element")
+    else:  # refused: the page stays on the demo, named as the demo, and says why
+        assert "overflow" in status or "too large" in status, status
+        assert title == demo_title and dash_duo.driver.current_url == demo_address
+        assert dash_duo.find_element(FIRST_EIGENVALUE).text == demo_eigenvalue
