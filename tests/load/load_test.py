@@ -87,7 +87,9 @@ def free_port() -> int:
 class Server:
     """``python3 -m webapp serve`` in its own process group (gunicorn master and workers)."""
 
-    def __init__(self, data_dir: Path, *, port: int | None = None, workers: int = 2, log_path: Path | None = None):
+    def __init__(self, data_dir: Path, *, port: int | None = None, workers: int = 2, log_path: Path | None = None,
+                 env: dict | None = None):
+        self.extra_env = env or {}
         self.data_dir = Path(data_dir)
         self.port = port or free_port()
         self.workers = workers
@@ -98,7 +100,7 @@ class Server:
 
     def start(self) -> float:
         """Start and wait until Dash answers; returns the seconds it took. Raises if it never does."""
-        env = {**os.environ, "PYTHONUNBUFFERED": "1"}
+        env = {**os.environ, "PYTHONUNBUFFERED": "1", **self.extra_env}
         env.pop("ORDINATE_ACCESS_KEY", None)
         self._log = open(self.log_path, "ab")
         began = time.monotonic()
@@ -220,6 +222,10 @@ def summary(recorder: Recorder, seconds: float) -> dict:
         "uploads": sum(s.kind == "upload" and not s.problem for s in samples),
         "saves": sum(s.name == "save_current_view" and not s.problem for s in samples),
         "short_links": sum(s.kind == "short-link" and not s.problem for s in samples),
+        "connection_errors": sum(bool(s.problem) and s.problem.startswith("connection error") for s in samples),
+        "connection_errors_answered_when_sent_again": sum(
+            bool(s.problem) and s.problem.startswith("connection error") and "sent again at once: 2" in s.problem
+            for s in samples),
         "first_problems": recorder.problems[:10],
     }
 
@@ -320,7 +326,7 @@ class User:
     """One person's browser: a session, the scripts it already loaded, the page's stores."""
 
     def __init__(self, base: str, recorder: Recorder, *, number: int = 0, think: float = 0.0,
-                 deadline: float | None = None):
+                 deadline: float | None = None, retry_probe: bool = True):
         self.base = base
         self.recorder = recorder
         self.number = number
@@ -333,6 +339,8 @@ class User:
         self.parallel = ThreadPoolExecutor(max_workers=4)  # the renderer sends independent callbacks at once
         self.random = random.Random(number)
         self.current = ""
+        self.last_upload_token: str | None = None
+        self.retry_probe = retry_probe
         self._controls: dict = {}
         self._shown_first = None
         self._shown_rest = None
@@ -355,8 +363,18 @@ class User:
                                      f"no answer within {REQUEST_TIMEOUT_SECONDS:g} s", True))
             return None
         except requests.RequestException as error:
+            # Counted as an error all the same; a browser resends a request that failed this way on a
+            # reused connection, so say whether that would have worked (sent once more, on a new connection).
+            retry = ""
+            if isinstance(error, requests.ConnectionError) and self.retry_probe:
+                try:
+                    with requests.Session() as fresh:
+                        again = fresh.request(method, self.base + path, **kwargs)
+                    retry = f" [sent again at once: {again.status_code}]"
+                except requests.RequestException as second:
+                    retry = f" [sent again at once: {type(second).__name__}]"
             self.recorder.add(Sample(kind, name, time.monotonic() - began,
-                                     f"connection error: {type(error).__name__}: {error}"[:300], True))
+                                     f"connection error: {type(error).__name__}: {error}"[:300] + retry, True))
             return None
         seconds = time.monotonic() - began
         if response.status_code >= 500:
@@ -425,8 +443,11 @@ class User:
         query = urlsplit(response.url).query
         return "?" + query if query else ""
 
-    def draw_view(self, search: str, *, saved_view: str | None = None) -> bool:
-        """Replay the callbacks a page fires for the address ``search``; True if all drew a real view."""
+    def draw_view(self, search: str, *, saved_view: str | None = None, follow_parallel: bool = True) -> bool:
+        """Replay the callbacks a page fires for the address ``search``; True if all drew a real view.
+
+        With ``follow_parallel`` it also polls until parallel analysis has finished and redraws, as the page does.
+        """
         values = {"url.search": search, "manage-links.data": self.manage_links or None}
 
         def scores_ok(answer):
@@ -451,7 +472,7 @@ class User:
         ok = self._after_first(answer, search) and ok
         # Parallel analysis may still be running: the page polls, then redraws.
         polls = 0
-        while answer.get("parallel-poll", {}).get("disabled") is False:
+        while follow_parallel and answer.get("parallel-poll", {}).get("disabled") is False:
             if polls * POLL_INTERVAL_SECONDS > REQUEST_TIMEOUT_SECONDS:
                 self.recorder.add(Sample("callback", "wait_for_parallel_analysis", 0.0,
                                          f"parallel analysis not done after {REQUEST_TIMEOUT_SECONDS:g} s"))
@@ -518,6 +539,7 @@ class User:
         if response is None:
             return None
         body = response.json()
+        self.last_upload_token = body["token"]
         result = {"token": body["token"], "summary": body["summary"], "purpose": "analysis", "at": time.time()}
 
         def opened(answer):
@@ -608,10 +630,10 @@ class User:
 
 
 def run_load(users: int, seconds: float, *, think: float = 1.0, workers: int = 2, keep_log: Path | None = None,
-             echo=print) -> dict:
+             server_env: dict | None = None, echo=print) -> dict:
     """Start a fresh server, run ``users`` for ``seconds``, stop it; returns the summary (and the server log)."""
     with tempfile.TemporaryDirectory(prefix="ordinate-load-") as temp:
-        server = Server(Path(temp) / "data", workers=workers, log_path=Path(temp) / "server.log")
+        server = Server(Path(temp) / "data", workers=workers, log_path=Path(temp) / "server.log", env=server_env)
         started = server.start()
         echo(f"server up in {started:.1f} s on port {server.port}; {users} users for {seconds:g} s "
              f"(think time {think:g} s on average)")
@@ -654,6 +676,8 @@ def report(result: dict) -> str:
         f"{result['uploads']} uploads, {result['saves']} saves, {result['short_links']} short links",
         f"errors {result['errors']} (server failures {result['server_failures']}, "
         f"wrong answers {result['wrong_answers']}); server log tracebacks {result['server_log_tracebacks']}",
+        f"connection errors {result['connection_errors']}, of which answered when sent again at once "
+        f"{result['connection_errors_answered_when_sent_again']}",
         f"all requests: p50 {result['p50']:.3f} s, p95 {result['p95']:.3f} s",
         f"callbacks ({result['callbacks']}): p50 {result['callback_p50']:.3f} s, p95 {result['callback_p95']:.3f} s, "
         f"max {result['callback_max']:.3f} s",
@@ -691,7 +715,15 @@ def test_twenty_users_for_a_minute_get_no_errors():
     assert result["errors"] == 0, report(result)
 
 
+def stop_on_sigterm() -> None:
+    """A terminated script still stops the servers it started (its ``finally`` blocks run)."""
+    def handler(signum, frame):
+        raise SystemExit(128 + signum)
+    signal.signal(signal.SIGTERM, handler)
+
+
 def main(argv: list[str] | None = None) -> int:
+    stop_on_sigterm()
     parser = argparse.ArgumentParser(description=__doc__.split("\n", 1)[0])
     parser.add_argument("--users", type=int, default=20)
     parser.add_argument("--seconds", type=float, default=60.0)
