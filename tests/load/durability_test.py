@@ -71,6 +71,8 @@ class Check:
     not_drawing: list = field(default_factory=list)    # there, but its view does not draw
     checked_uploads: int = 0
     checked_saves: int = 0
+    slowest_callback: float = 0.0  # seconds, over every callback of every check
+    slowest_item: float = 0.0      # seconds to open and draw one upload's or saved view's page
 
 
 def writers(base: str, promised: Promised, round_number: int, stop: threading.Event) -> list[threading.Thread]:
@@ -113,15 +115,16 @@ def check_promised(base: str, uploads: dict, saves: dict, check: Check) -> None:
     try:
         for token, search in uploads.items():
             check.checked_uploads += 1
-            before = len(recorder.samples)
+            before, began = len(recorder.samples), time.monotonic()
             page = user.open_page("/" + search)
             if page is None or not user.draw_view(page, follow_parallel=False):
                 problems = [s.problem for s in recorder.samples[before:] if s.problem]
                 (check.lost if any("not found" in p for p in problems) else check.not_drawing).append(
                     ("upload", token, problems[:3]))
+            check.slowest_item = max(check.slowest_item, time.monotonic() - began)
         for view_id, token in saves.items():
             check.checked_saves += 1
-            before = len(recorder.samples)
+            before, began = len(recorder.samples), time.monotonic()
             view_search = user.open_short_link(view_id)
             if view_search is None:
                 check.lost.append(("save", view_id, [s.problem for s in recorder.samples[before:] if s.problem][:3]))
@@ -130,8 +133,11 @@ def check_promised(base: str, uploads: dict, saves: dict, check: Check) -> None:
             if page is None or not user.draw_view(page, saved_view=view_id, follow_parallel=False):
                 check.not_drawing.append(("save", view_id,
                                           [s.problem for s in recorder.samples[before:] if s.problem][:3]))
+            check.slowest_item = max(check.slowest_item, time.monotonic() - began)
     finally:
         user.close()
+        check.slowest_callback = max([check.slowest_callback] + [s.seconds for s in recorder.samples
+                                                                  if s.kind == "callback"])
 
 
 def first_view_seconds(base: str) -> tuple[float, str | None]:
@@ -244,6 +250,8 @@ def run_durability(rounds: int = 20, *, seed: int = 13, keep_log: Path | None = 
         "first_view_problems": first_view_problems,
         "slowest_first_view_seconds": round(max(first_views, default=0.0), 2),
         "median_first_view_seconds": round(sorted(first_views)[len(first_views) // 2], 2) if first_views else 0.0,
+        "slowest_check_callback_seconds": round(check.slowest_callback, 2),
+        "slowest_check_item_seconds": round(check.slowest_item, 2),
         "storage_problems": storage,
         "server_log_tracebacks": log.count("Traceback"),
         "server_log_tail": log[-3000:],
@@ -259,7 +267,9 @@ def report(result: dict) -> str:
         f"lost {len(result['lost'])}, not drawing {len(result['not_drawing'])}, first-view problems "
         f"{len(result['first_view_problems'])}, storage problems {len(result['storage_problems'])}",
         f"first view after restart: median {result['median_first_view_seconds']} s, "
-        f"slowest {result['slowest_first_view_seconds']} s; server log tracebacks {result['server_log_tracebacks']}",
+        f"slowest {result['slowest_first_view_seconds']} s; slowest check: callback "
+        f"{result['slowest_check_callback_seconds']} s, page and view {result['slowest_check_item_seconds']} s; "
+        f"server log tracebacks {result['server_log_tracebacks']}",
     ]
     for key in ("start_failures", "lost", "not_drawing", "first_view_problems", "storage_problems"):
         for item in result[key][:5]:
@@ -273,6 +283,7 @@ def assert_durable(result: dict) -> None:
     assert not result["lost"] and not result["not_drawing"], report(result)
     assert not result["first_view_problems"] and not result["storage_problems"], report(result)
     assert result["slowest_first_view_seconds"] < 30.0, report(result)
+    assert result["slowest_check_callback_seconds"] < 30.0, report(result)
 
 
 def test_twenty_kill_nine_restarts_lose_nothing_acknowledged():

@@ -199,6 +199,12 @@ def percentile(values, fraction: float) -> float:
     return ordered[rank - 1]
 
 
+def _answered_again(problem: str) -> bool:
+    """Whether a request that failed on its connection got a non-5xx answer when sent once more."""
+    match = re.search(r"sent again at once: (\d+)", problem)
+    return bool(match) and int(match.group(1)) < 500
+
+
 def summary(recorder: Recorder, seconds: float) -> dict:
     samples = list(recorder.samples)
     callbacks = [s.seconds for s in samples if s.kind == "callback"]
@@ -224,7 +230,7 @@ def summary(recorder: Recorder, seconds: float) -> dict:
         "short_links": sum(s.kind == "short-link" and not s.problem for s in samples),
         "connection_errors": sum(bool(s.problem) and s.problem.startswith("connection error") for s in samples),
         "connection_errors_answered_when_sent_again": sum(
-            bool(s.problem) and s.problem.startswith("connection error") and "sent again at once: 2" in s.problem
+            bool(s.problem) and s.problem.startswith("connection error") and _answered_again(s.problem)
             for s in samples),
         "first_problems": recorder.problems[:10],
     }
