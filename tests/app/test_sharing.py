@@ -14,10 +14,10 @@ from pathlib import Path
 
 import pytest
 
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import AppConfig
 from webapp.state import ViewState, parse_query, to_query
-from webapp.storage import DataStore
+from webapp.store.storage import DataStore
 from webapp.ui import layout as L
 from webapp.ui import view_model as vm
 from webapp.ui.callbacks import _search_if_changed

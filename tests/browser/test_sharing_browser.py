@@ -17,7 +17,7 @@ from selenium.webdriver.common.keys import Keys
 
 from tests.app.conftest import iris_frame
 from tests.browser.test_dashboard import FIGURE_DATA_JS, FIRST_PERCENT, TIMEOUT, _headless_options, _text, _wait_for
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import AppConfig
 from webapp.state import ViewState, to_query
 from webapp.ui import view_model as vm

@@ -1,7 +1,7 @@
 """Callbacks for saved views and presentation mode.
 
 A saved view is an immutable snapshot (``DataStore.save_view``) reached by a
-short link ``/v/<id>`` (see ``webapp.app``), which redirects to the full view
+short link ``/v/<id>`` (see ``webapp.web.app``), which redirects to the full view
 URL with ``view=<id>``. Presentation mode is a URL flag (``present=1`` and
 ``slide=N``) that shows the dataset's saved views in order.
 """
