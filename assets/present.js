@@ -1,14 +1,21 @@
 /* Keyboard for presentation mode: arrows and Page keys step through saved views,
- * F toggles full screen. Active only while the page is presenting, and never while
- * typing in a field. */
+ * Home and End jump to the first and last, F toggles full screen (Esc leaves it, as
+ * browsers do). Active only while the page is presenting, never while typing in a
+ * field; an attendee's page that follows the presenter only takes F. */
 (function () {
     "use strict";
     var NEXT = ["ArrowRight", "PageDown", " "];
     var PREVIOUS = ["ArrowLeft", "PageUp"];
 
-    function presenting() {
+    var JUMPS = {Home: "slide-first", End: "slide-last"};
+
+    function hasClass(name) {
         var root = document.getElementById("app-root");
-        return root && root.classList.contains("is-presenting");
+        return root && root.classList.contains(name);
+    }
+
+    function presenting() {
+        return hasClass("is-presenting");
     }
 
     function typing(target) {
@@ -25,14 +32,22 @@
         if (!presenting() || typing(event.target) || event.altKey || event.ctrlKey || event.metaKey) {
             return;
         }
-        if (NEXT.indexOf(event.key) >= 0) {
+        if (event.key === "f" || event.key === "F") {
+            press("full-screen");
+            return;
+        }
+        if (hasClass("is-following")) {
+            return;
+        }
+        if (JUMPS[event.key]) {
+            event.preventDefault();
+            press(JUMPS[event.key]);
+        } else if (NEXT.indexOf(event.key) >= 0) {
             event.preventDefault();
             press("slide-next");
         } else if (PREVIOUS.indexOf(event.key) >= 0) {
             event.preventDefault();
             press("slide-prev");
-        } else if (event.key === "f" || event.key === "F") {
-            press("full-screen");
         }
     });
 }());

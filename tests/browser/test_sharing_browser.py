@@ -69,22 +69,22 @@ def test_present_mode_steps_through_three_views_by_keyboard(dash_duo, app_and_to
     dash_duo.start_server(app)
     dash_duo.driver.get(dash_duo.server_url + "/?" + to_query(ViewState(dataset=token, present=True)))
     dash_duo.wait_for_contains_text("#saved-banner", "Autoscaled", timeout=TIMEOUT)
-    dash_duo.wait_for_text_to_equal("#slide-position", "1 / 3", timeout=TIMEOUT)
+    dash_duo.wait_for_text_to_equal("#slide-position", "View 1 of 3", timeout=TIMEOUT)
     assert not dash_duo.find_element(".recipe-rail").is_displayed()
     body = dash_duo.find_element("body")
 
     body.send_keys(Keys.ARROW_RIGHT)
-    dash_duo.wait_for_text_to_equal("#slide-position", "2 / 3", timeout=TIMEOUT)
+    dash_duo.wait_for_text_to_equal("#slide-position", "View 2 of 3", timeout=TIMEOUT)
     dash_duo.wait_for_contains_text("#saved-banner", "Covariance", timeout=TIMEOUT)
     dash_duo.wait_for_text_to_equal(FIRST_PERCENT, "92.46", timeout=TIMEOUT)
     assert "slide=2" in dash_duo.driver.current_url
 
     body.send_keys(Keys.ARROW_RIGHT)
-    dash_duo.wait_for_text_to_equal("#slide-position", "3 / 3", timeout=TIMEOUT)
+    dash_duo.wait_for_text_to_equal("#slide-position", "View 3 of 3", timeout=TIMEOUT)
     dash_duo.wait_for_contains_text("#saved-banner", "Pareto", timeout=TIMEOUT)
 
     body.send_keys(Keys.ARROW_LEFT)
-    dash_duo.wait_for_text_to_equal("#slide-position", "2 / 3", timeout=TIMEOUT)
+    dash_duo.wait_for_text_to_equal("#slide-position", "View 2 of 3", timeout=TIMEOUT)
     dash_duo.find_element("#present-exit").click()
     _wait_for(lambda: "present=0" in dash_duo.driver.current_url)
     time.sleep(0.5)
@@ -117,3 +117,57 @@ def test_exported_csv_from_the_page_is_safe_and_matches_the_view(dash_duo, tmp_p
     pc1 = [float(row[header.index("PC1")]) for row in rows[1:]]
     # PC1 variance of autoscaled iris = first correlation eigenvalue 2.9185 (published, from memory).
     assert float(np.var(pc1, ddof=1)) == pytest.approx(2.9185, abs=1e-4)
+
+
+def _follow_state(driver) -> tuple:
+    """What an attendee and the presenter are compared on: slide counter, slide title, scores data."""
+    return (_text(driver, "#slide-position"), _text(driver, "#saved-banner h2") or _text(driver, "#saved-banner"),
+            driver.execute_script(FIGURE_DATA_JS))
+
+
+def test_attendees_follow_the_presenter_read_only_and_see_the_end(dash_duo, app_and_token):
+    app, services, token = app_and_token
+    for title, scaling in (("Autoscaled", "unit"), ("Covariance", "none"), ("Pareto", "pareto")):
+        vm.save_view(services, ViewState(dataset=token, scaling=scaling), title=title, note=f"{title} note",
+                     author="", parent=None)
+    dash_duo.start_server(app)
+    presenter = dash_duo.driver
+    presenter.get(dash_duo.server_url + "/?" + to_query(ViewState(dataset=token, present=True)))
+    dash_duo.wait_for_text_to_equal("#slide-position", "View 1 of 3", timeout=TIMEOUT)
+    assert not dash_duo.find_element("#slide-prev").is_enabled()  # at the start
+    dash_duo.find_element("#follow-start").click()
+    link = _wait_for(lambda: presenter.find_elements("css selector", "#follow-link a"))[0].get_attribute("href")
+    assert "/follow/" in link and "key" not in link
+
+    attendee = webdriver.Chrome(options=_headless_options())
+    try:
+        attendee.get(link)  # arriving after the start: the current slide
+        _wait_for(lambda: _text(attendee, "#slide-position") == "View 1 of 3")
+        assert "follow=" in attendee.current_url
+        assert "Following the presenter" in _wait_for(lambda: _text(attendee, "#follow-banner"))
+
+        delays = []  # seconds from the presenter's key press: (presenter's page drawn, attendee's page matching)
+        for expected in ("View 2 of 3", "View 3 of 3"):
+            pressed = time.monotonic()
+            presenter.find_element("css selector", "body").send_keys(Keys.ARROW_RIGHT)
+            shown = _wait_for(lambda: (lambda s: s[0] == expected and s[2] and s)(_follow_state(presenter)))
+            drawn = time.monotonic() - pressed
+            _wait_for(lambda: _follow_state(attendee) == shown)
+            delays.append((drawn, time.monotonic() - pressed))
+        # A speed figure, not a pass/fail: recorded in docs/performance.md ("Follow links").
+        print("follow delays (presenter drawn, attendee matching), s:", [f"{a:.2f}/{b:.2f}" for a, b in delays])
+        assert not dash_duo.find_element("#slide-next").is_enabled()  # at the end
+        dash_duo.find_element("#slide-first").click()  # Home/End jump
+        dash_duo.wait_for_text_to_equal("#slide-position", "View 1 of 3", timeout=TIMEOUT)
+        _wait_for(lambda: _text(attendee, "#slide-position") == "View 1 of 3")
+
+        # Read-only: the attendee's keys do not step, and the presenter never moves for them.
+        attendee.find_element("css selector", "body").send_keys(Keys.ARROW_RIGHT)
+        time.sleep(1.5)
+        assert _text(attendee, "#slide-position") == "View 1 of 3" == _text(presenter, "#slide-position")
+        assert not attendee.find_element("css selector", "#slide-next").is_displayed()
+
+        dash_duo.find_element("#present-exit").click()
+        _wait_for(lambda: "ended the presentation" in _text(attendee, "#follow-banner"))
+    finally:
+        attendee.quit()

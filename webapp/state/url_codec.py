@@ -250,6 +250,7 @@ PARAMETERS: tuple[UrlParameter, ...] = (
     UrlParameter("view", "saved_view", "drawing", _read_token, _write_optional),
     UrlParameter("present", "present", "drawing", _read_flag, _write_flag),
     UrlParameter("slide", "slide", "drawing", _read_whole(1, MAX_SLIDE), str),
+    UrlParameter("follow", "follow", "drawing", _read_token, _write_optional),
 )
 """Every view parameter in the order ``to_query`` writes it (after ``v``)."""
 

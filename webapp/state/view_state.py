@@ -212,9 +212,10 @@ class ViewState:
     saved_view: str | None = None
     present: bool = False
     slide: int = 1
+    follow: str | None = None  # code of a presenter's follow session this page follows (read-only)
 
     def __post_init__(self) -> None:
-        for name in ("dataset", "batch", "excluded_set"):
+        for name in ("dataset", "batch", "excluded_set", "follow"):
             code = getattr(self, name)
             if code is not None and not (isinstance(code, str) and _TOKEN_PATTERN.fullmatch(code)):
                 raise ViewStateError(

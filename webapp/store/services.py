@@ -16,6 +16,7 @@ from pathlib import Path
 from webapp.config import DEMO_TITLE, AppConfig
 from webapp.store.compute import ComputeLayer
 from webapp.store.datadir import secure_data_dir
+from webapp.store.follow import FollowSessions
 from webapp.store.storage import DataStore, DatasetRecord
 
 __all__ = ["DEMO_SETTING", "Services", "create_services", "ensure_demo", "forget_results_if_unused"]
@@ -30,13 +31,14 @@ class Services:
     config: AppConfig
     store: DataStore
     compute: ComputeLayer
+    follows: FollowSessions
 
 
 def create_services(config: AppConfig) -> Services:
     secure_data_dir(config.data_dir)
     store = DataStore(config.data_dir)
     compute = ComputeLayer(store, Path(config.data_dir) / "results")
-    return Services(config, store, compute)
+    return Services(config, store, compute, FollowSessions(store))
 
 
 def forget_results_if_unused(services: Services, record: DatasetRecord) -> None:

@@ -8,19 +8,21 @@ URL with ``view=<id>``. Presentation mode is a URL flag (``present=1`` and
 
 from __future__ import annotations
 
-import flask
 from dash import ALL, Input, Output, State, ctx, dcc, html, no_update
 from dash.exceptions import PreventUpdate
 
 from webapp.state import ViewState, parse_query, to_query
 from webapp.ui import layout as L
 from webapp.ui import view_model as vm
+from webapp.ui.components import base_url
+from webapp.ui.follow import register_follow_callbacks
 
 
 def register_sharing_callbacks(app, services) -> None:
     _register_display(app, services)
     _register_save(app, services)
     _register_presentation(app, services)
+    register_follow_callbacks(app, services)
 
 
 # --- what the sharing parts show ---------------------------------------------------
@@ -34,6 +36,10 @@ def _register_display(app, services) -> None:
         Output(L.SAVED_LIST, "children"),
         Output(L.PRESENT_BAR, "hidden"),
         Output(L.SLIDE_POSITION, "children"),
+        Output(L.SLIDE_FIRST, "disabled"),
+        Output(L.SLIDE_PREV, "disabled"),
+        Output(L.SLIDE_NEXT, "disabled"),
+        Output(L.SLIDE_LAST, "disabled"),
         Output(L.ORIGIN_VIEW, "data"),
         Input(L.URL, "search"),
     )
@@ -41,15 +47,19 @@ def _register_display(app, services) -> None:
         state, _ = parse_query(search)
         shown, slides, _ = vm.effective_state(services, state)
         info = vm.saved_view_info(services, shown)
-        banner = saved_banner(info, shown, _base_url()) if info else None
-        position = f"{slides.position} / {slides.count}" if slides else ""
+        banner = saved_banner(info, shown, base_url()) if info else None
+        position = f"View {slides.position} of {slides.count}" if slides else ""
+        at_start = not slides or slides.position <= 1
+        at_end = not slides or slides.position >= slides.count
+        classes = ["ordinate"] + (["is-presenting"] if state.present else []) + (["is-following"] if state.follow else [])
         return (
-            "ordinate is-presenting" if state.present else "ordinate",
+            " ".join(classes),
             banner,
             info is None,
             saved_list(vm.saved_views_list(services, state.dataset), state.dataset),
             not state.present,
             position,
+            at_start, at_start, at_end, at_end,
             info["view_id"] if info else no_update,
         )
 
@@ -97,13 +107,6 @@ def saved_list(views: list[dict], dataset: str | None) -> list:
             html.A("present from here", href=present, className="small-link"),
         ]))
     return [html.Ol(items, className="saved-items")]
-
-
-def _base_url() -> str:
-    try:
-        return flask.request.host_url
-    except RuntimeError:  # outside a request (tests calling the function directly)
-        return "/"
 
 
 # --- saving -----------------------------------------------------------------------------
@@ -158,7 +161,7 @@ def _register_save(app, services) -> None:
                                 parent=state.saved_view or origin)
         except (vm.DatasetNotFound, KeyError):
             return no_update, html.P("This dataset is no longer available.", className="notice notice-error")
-        short = f"{_base_url()}v/{view.view_id}"
+        short = f"{base_url()}v/{view.view_id}"
         message = html.P(["Saved. Short link: ", html.A(short, href=short, className="saved-link")],
                          className="save-done")
         return "?" + to_query(state.replace(saved_view=view.view_id)), message
@@ -171,16 +174,20 @@ def _register_presentation(app, services) -> None:
     @app.callback(
         Output(L.URL, "search", allow_duplicate=True),
         Input(L.PRESENT_OPEN, "n_clicks"),
+        Input(L.SLIDE_FIRST, "n_clicks"),
         Input(L.SLIDE_PREV, "n_clicks"),
         Input(L.SLIDE_NEXT, "n_clicks"),
+        Input(L.SLIDE_LAST, "n_clicks"),
         Input(L.PRESENT_EXIT, "n_clicks"),
         State(L.URL, "search"),
         prevent_initial_call=True,
     )
-    def navigate(_open, _prev, _next, _exit, search):
+    def navigate(_open, _first, _prev, _next, _last, _exit, search):
         state, _ = parse_query(search)
         if state.dataset is None or not ctx.triggered or not ctx.triggered[0].get("value"):
             raise PreventUpdate
+        if state.follow and ctx.triggered_id != L.PRESENT_EXIT:
+            raise PreventUpdate  # an attendee's page follows the presenter; it does not step on its own
         return "?" + to_query(presentation_step(services, state, ctx.triggered_id))
 
     app.clientside_callback(
@@ -203,10 +210,12 @@ def presentation_step(services, state: ViewState, action: str) -> ViewState:
         start = _position_of(services, state) if not state.present else state.slide
         return ViewState(dataset=state.dataset, present=True, slide=start)
     if action == L.PRESENT_EXIT:
-        return shown.replace(present=False, slide=1)
-    step = -1 if action == L.SLIDE_PREV else 1
+        return shown.replace(present=False, slide=1, follow=None)
     count = slides.count if slides else 1
-    return state.replace(slide=min(max(state.slide + step, 1), count))
+    target = {L.SLIDE_FIRST: 1, L.SLIDE_LAST: count}.get(action)
+    if target is None:
+        target = state.slide + (-1 if action == L.SLIDE_PREV else 1)
+    return state.replace(slide=min(max(target, 1), count))
 
 
 def _position_of(services, state: ViewState) -> int:

@@ -63,6 +63,7 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
     go.Figure()
     _register_start_page(app, services)
     _register_short_links(app, services)
+    _register_follow_links(app, services)
     app.server.config["ordinate.services"] = services
     return app
 
@@ -109,6 +110,20 @@ def _register_short_links(app: dash.Dash, services: Services) -> None:
         state, _ = parse_query(view.query)
         state = state.replace(dataset=view.dataset_token, saved_view=view.view_id, present=False)
         return redirect("/?" + to_query(state), code=302)
+
+
+def _register_follow_links(app: dash.Dash, services: Services) -> None:
+    """/follow/<code>: an attendee's way in, redirecting to the presenter's current view, followed."""
+
+    @app.server.route("/follow/<code>")
+    def open_follow_link(code: str):
+        session = services.follows.get(code)
+        if session is None:
+            return _plain_page("Follow link not found",
+                               "This follow link is not known here. It may be mistyped or cut short, "
+                               "or the presentation ended long ago."), 404
+        state, _ = parse_query(session.query)
+        return redirect("/?" + to_query(state.replace(follow=session.code)), code=302)
 
 
 def _plain_page(title: str, message: str) -> str:
