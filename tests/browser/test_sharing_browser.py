@@ -76,7 +76,9 @@ def test_present_mode_steps_through_three_views_by_keyboard(dash_duo, app_and_to
     body.send_keys(Keys.ARROW_RIGHT)
     dash_duo.wait_for_text_to_equal("#slide-position", "View 2 of 3", timeout=TIMEOUT)
     dash_duo.wait_for_contains_text("#saved-banner", "Covariance", timeout=TIMEOUT)
-    dash_duo.wait_for_text_to_equal(FIRST_PERCENT, "92.46", timeout=TIMEOUT)
+    # The slide shows only the scores plot; the variance table behind it holds the covariance numbers.
+    _wait_for(lambda: dash_duo.driver.execute_script(
+        "return document.querySelector(arguments[0]).textContent", FIRST_PERCENT) == "92.46")
     assert "slide=2" in dash_duo.driver.current_url
 
     body.send_keys(Keys.ARROW_RIGHT)
@@ -171,3 +173,60 @@ def test_attendees_follow_the_presenter_read_only_and_see_the_end(dash_duo, app_
         _wait_for(lambda: "ended the presentation" in _text(attendee, "#follow-banner"))
     finally:
         attendee.quit()
+
+
+SLIDE_FIT_JS = """
+const plot = document.querySelector('.is-presenting .scores-card .js-plotly-plot');
+const outside = [];
+for (const el of document.querySelectorAll('#app-root *')) {
+  const r = el.getBoundingClientRect();
+  if (r.width === 0 || r.height === 0 || getComputedStyle(el).visibility === 'hidden') { continue; }
+  if (r.right > window.innerWidth + 1 || r.bottom > window.innerHeight + 1) {
+    outside.push((el.id || el.className || el.tagName).toString().slice(0, 60));
+  }
+}
+return {width: window.innerWidth, height: window.innerHeight,
+        scrollWidth: document.documentElement.scrollWidth, scrollHeight: document.documentElement.scrollHeight,
+        plot: plot ? plot.getBoundingClientRect().height : 0, outside: outside.slice(0, 10),
+        cards: Array.from(document.querySelectorAll('.cards > .card')).filter(c => c.offsetParent !== null)
+                    .map(c => c.className)};
+"""
+
+
+def _set_viewport(driver, width, height):
+    driver.set_window_size(width, height)
+    inner_width, inner_height = driver.execute_script("return [window.innerWidth, window.innerHeight]")
+    driver.set_window_size(2 * width - inner_width, 2 * height - inner_height)
+
+
+@pytest.mark.parametrize("width, height", [(1280, 800), (1366, 768), (1920, 1080)])
+def test_a_slide_fills_the_screen_without_scrolling(dash_duo, app_and_token, width, height):
+    app, services, token = app_and_token
+    vm.save_view(services, ViewState(dataset=token, pc_y=3), title="Petals and sepals",
+                 note="Petal length and width drive **PC1**; the three species separate along it.",
+                 author="", parent=None)
+    vm.save_view(services, ViewState(dataset=token, slide_figure="variance"), title="How many components",
+                 note="One component by parallel analysis.", author="", parent=None)
+    dash_duo.start_server(app)
+    driver = dash_duo.driver
+    _set_viewport(driver, width, height)
+    driver.get(dash_duo.server_url + "/?" + to_query(ViewState(dataset=token, present=True)))
+    dash_duo.wait_for_text_to_equal("#slide-position", "View 1 of 2", timeout=TIMEOUT)
+    fit = _wait_for(lambda: (lambda f: f["plot"] > 0 and f)(driver.execute_script(SLIDE_FIT_JS)))
+    time.sleep(1.0)  # the graph takes its slide height after the page settles
+    fit = driver.execute_script(SLIDE_FIT_JS)
+    assert (fit["width"], fit["height"]) == (width, height)
+    assert fit["scrollHeight"] <= height and fit["scrollWidth"] <= width, fit
+    assert fit["outside"] == [], fit
+    assert fit["cards"] == ["card saved-banner", "card scores-card"]  # the slide's one figure
+    if (width, height) == (1280, 800):
+        assert fit["plot"] >= 0.6 * height, fit  # the scores plot takes at least 60 % of the screen's height
+    print(f"{width}x{height}: scores plot {fit['plot']:.0f} px tall ({fit['plot'] / height:.0%})")
+
+    driver.find_element("css selector", "body").send_keys(Keys.END)  # the variance slide
+    dash_duo.wait_for_text_to_equal("#slide-position", "View 2 of 2", timeout=TIMEOUT)
+    fit = _wait_for(lambda: (lambda f: "card variance-card" in f["cards"] and f)(driver.execute_script(SLIDE_FIT_JS)))
+    assert fit["cards"] == ["card saved-banner", "card variance-card"]
+    time.sleep(1.0)
+    fit = driver.execute_script(SLIDE_FIT_JS)
+    assert fit["scrollHeight"] <= height and fit["scrollWidth"] <= width and fit["outside"] == [], fit

@@ -8,10 +8,12 @@ URL with ``view=<id>``. Presentation mode is a URL flag (``present=1`` and
 
 from __future__ import annotations
 
+import re
+
 from dash import ALL, Input, Output, State, ctx, dcc, html, no_update
 from dash.exceptions import PreventUpdate
 
-from webapp.state import ViewState, parse_query, to_query
+from webapp.state import SLIDE_FIGURES, ViewState, parse_query, to_query
 from webapp.ui import layout as L
 from webapp.ui import view_model as vm
 from webapp.ui.components import base_url
@@ -51,7 +53,11 @@ def _register_display(app, services) -> None:
         position = f"View {slides.position} of {slides.count}" if slides else ""
         at_start = not slides or slides.position <= 1
         at_end = not slides or slides.position >= slides.count
-        classes = ["ordinate"] + (["is-presenting"] if state.present else []) + (["is-following"] if state.follow else [])
+        classes = ["ordinate"]
+        if state.present:
+            classes += ["is-presenting", f"shows-{shown.slide_figure}"]
+        if state.follow:
+            classes.append("is-following")
         return (
             " ".join(classes),
             banner,
@@ -64,6 +70,15 @@ def _register_display(app, services) -> None:
         )
 
 
+PRESENTER_MARK = re.compile(r"^[ \t]*presenter only:[ \t]*$", re.IGNORECASE | re.MULTILINE)
+
+
+def split_presenter_note(note: str) -> tuple[str, str]:
+    """(shown to everyone, presenter only): the lines after a line "Presenter only:" are the presenter's."""
+    parts = PRESENTER_MARK.split(note or "", maxsplit=1)
+    return parts[0].rstrip(), (parts[1].strip() if len(parts) > 1 else "")
+
+
 def saved_banner(info: dict, state: ViewState, base_url: str) -> list:
     short = f"{base_url}v/{info['view_id']}"
     meta = [f"Saved {info['saved']}"]
@@ -71,6 +86,7 @@ def saved_banner(info: dict, state: ViewState, base_url: str) -> list:
         meta.append(f"by {info['author']}")
     meta.append(f"engine {info['engine_version']}")
     meta.append(f"data fingerprint {info['content_hash'][:12]}…")
+    public_note, presenter_note = split_presenter_note(info["note"])
     children = [
         html.Div(className="banner-head", children=[
             html.H2(info["title"], className="saved-title"),
@@ -82,9 +98,14 @@ def saved_banner(info: dict, state: ViewState, base_url: str) -> list:
                             className="small-button"),
             ]),
         ]),
-        dcc.Markdown(info["note"], className="saved-note", link_target="_blank"),
+        dcc.Markdown(public_note, className="saved-note", link_target="_blank"),
         html.P(" · ".join(meta), className="saved-meta"),
     ]
+    if presenter_note and not state.follow:  # an attendee's page never shows the presenter's notes
+        children.insert(2, html.Div(className="presenter-note", children=[
+            html.P("Presenter notes (not shown to people following the presentation)", className="presenter-note-head"),
+            dcc.Markdown(presenter_note, className="saved-note", link_target="_blank"),
+        ]))
     if info["outdated_engine"]:
         children.append(html.P(
             "This view was saved with another engine version; its numbers were recomputed with the current one.",
@@ -119,6 +140,7 @@ def _register_save(app, services) -> None:
         Output(L.SAVE_NOTE, "value"),
         Output(L.SAVE_RESULT, "children", allow_duplicate=True),
         Output(L.DATASET_DETAILS, "open", allow_duplicate=True),
+        Output(L.SAVE_FIGURE, "value"),
         Input(L.SAVE_OPEN, "n_clicks"),
         Input(L.SAVE_CANCEL, "n_clicks"),
         Input({"type": "duplicate", "index": ALL}, "n_clicks"),
@@ -128,16 +150,17 @@ def _register_save(app, services) -> None:
     )
     def toggle_save_panel(_open, _cancel, duplicate, hidden, search):
         if ctx.triggered_id == L.SAVE_CANCEL:
-            return True, no_update, no_update, None, no_update
+            return True, no_update, no_update, None, no_update, no_update
         if isinstance(ctx.triggered_id, dict) and not any(duplicate or ()):
             raise PreventUpdate
         if ctx.triggered_id == L.SAVE_OPEN and not hidden:
-            return True, no_update, no_update, None, no_update
+            return True, no_update, no_update, None, no_update, no_update
         state, _ = parse_query(search)
         info = vm.saved_view_info(services, state)
         title = f"Copy of {info['title']}" if info else ""
         note = info["note"] if info else ""
-        return False, title, note, None, False  # close the data summary so it does not cover the form
+        # Close the data summary so it does not cover the form.
+        return False, title, note, None, False, state.slide_figure
 
     @app.callback(
         Output(L.URL, "search", allow_duplicate=True),
@@ -146,12 +169,15 @@ def _register_save(app, services) -> None:
         State(L.SAVE_TITLE, "value"),
         State(L.SAVE_NOTE, "value"),
         State(L.SAVE_AUTHOR, "value"),
+        State(L.SAVE_FIGURE, "value"),
         State(L.URL, "search"),
         State(L.ORIGIN_VIEW, "data"),
         prevent_initial_call=True,
     )
-    def save_current_view(_clicks, title, note, author, search, origin):
+    def save_current_view(_clicks, title, note, author, figure, search, origin):
         state, _ = parse_query(search)
+        if figure in SLIDE_FIGURES:
+            state = state.replace(slide_figure=figure)
         if state.dataset is None or state.present:
             raise PreventUpdate
         if not (title or "").strip():
