@@ -26,7 +26,7 @@ from werkzeug.serving import make_server
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from webapp.app import DEMO_SETTING, create_app  # noqa: E402
+from webapp.web.app import DEMO_SETTING, create_app  # noqa: E402
 from webapp.config import AppConfig  # noqa: E402
 from webapp.state import ViewState, to_query  # noqa: E402
 from webapp.ui import view_model as vm  # noqa: E402

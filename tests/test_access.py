@@ -1,4 +1,4 @@
-"""The team access key: start-up policy, sign-in page, cookie and security headers (webapp/access.py).
+"""The team access key: start-up policy, sign-in page, cookie and security headers (webapp/web/access.py).
 
 Sources for the expectations:
 
@@ -31,8 +31,8 @@ from urllib.parse import parse_qs, urlsplit
 
 import pytest
 
-from webapp import access
-from webapp.access import (
+from webapp.web import access
+from webapp.web.access import (
     ACCESS_KEY_ENV,
     COOKIE_MAX_AGE_SECONDS,
     COOKIE_NAME,
@@ -49,9 +49,9 @@ from webapp.access import (
     safe_next,
     warning_text,
 )
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import AppConfig
-from webapp.storage import TOKEN_PATTERN, new_token
+from webapp.store.storage import TOKEN_PATTERN, new_token
 
 KEY = "k" * 24
 OTHER_KEY = "z" * 24
@@ -587,7 +587,7 @@ def test_dashboard_policy_allows_exactly_its_own_inline_scripts(app):
 
 
 def test_sign_in_and_manage_pages_carry_a_policy_without_inline_script(app, services, private_dataset):
-    from webapp.manage import manage_link
+    from webapp.web.manage import manage_link
 
     client = app.server.test_client()
     sign_in_policy = _directives(client.get("/sign-in", headers=HTML).headers["Content-Security-Policy"])

@@ -84,7 +84,7 @@ def test_console_script_runs_as_a_process(tmp_path):
 
 def test_report_command_writes_a_self_contained_file(iris_csv, tmp_path, capsys):
     from webapp.state import ViewState, to_query
-    from webapp.storage import DataStore
+    from webapp.store.storage import DataStore
 
     store = DataStore(tmp_path / "data")
     record = store.add_bytes(iris_csv.read_bytes(), "iris.csv")
@@ -99,7 +99,7 @@ def test_report_command_writes_a_self_contained_file(iris_csv, tmp_path, capsys)
 
 
 def test_datasets_list_and_delete_for_an_administrator(iris_csv, tmp_path, capsys):
-    from webapp.app import create_services
+    from webapp.web.app import create_services
     from webapp.config import AppConfig
     from webapp.state import ViewState
     from webapp.ui import view_model as vm

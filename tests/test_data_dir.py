@@ -1,4 +1,4 @@
-"""The data directory and everything in it are owner-only (webapp/datadir.py).
+"""The data directory and everything in it are owner-only (webapp/store/datadir.py).
 
 POSIX mode bits (stat(2)); "owner-only" means no group or other permission at
 all, which is common practice for files holding secrets (like ~/.ssh).
@@ -11,9 +11,9 @@ import stat
 
 import pytest
 
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import DEMO_DATASET, AppConfig
-from webapp.datadir import secure_data_dir
+from webapp.store.datadir import secure_data_dir
 
 pytestmark = pytest.mark.skipif(os.name != "posix", reason="POSIX permissions")
 

@@ -30,18 +30,18 @@ from webapp import cli
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.ingest import read_table
 from webapp.analysis.model_io import load_model, project_table
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import AppConfig
-from webapp.exports import (
+from webapp.web.exports import (
     EXPORT_FILES,
     UTF8_BOM,
     escape_csv_cell,
     export_csv,
     export_model_json,
     register_export_routes,
-    safe_filename,
     to_safe_csv,
 )
+from webapp.web.filenames import safe_filename
 from webapp.state import ViewState, to_query
 from webapp.ui.view_model import DatasetNotFound, resolve
 

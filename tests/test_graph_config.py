@@ -12,7 +12,7 @@ import re
 
 from dash import dcc
 
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import AppConfig
 from webapp.figures import GRAPH_CONFIG
 
@@ -46,7 +46,7 @@ def test_every_graph_of_the_dashboard_layout(tmp_path):
 
 
 def test_every_figure_config_in_the_report():
-    from webapp.report import _figure_html
+    from webapp.web.report import _figure_html
     import plotly.graph_objects as go
 
     html = _figure_html("scores", go.Figure())

@@ -1,4 +1,4 @@
-"""The uploader's private management page (webapp/manage.py) on a bare Flask app.
+"""The uploader's private management page (webapp/web/manage.py) on a bare Flask app.
 
 Sources for the expectations:
 
@@ -22,8 +22,8 @@ import re
 import flask
 import pytest
 
-from webapp.manage import CONFIRM_LABEL, NOT_FOUND_TEXT, manage_link, register_manage_routes
-from webapp.storage import DataStore, new_token
+from webapp.web.manage import CONFIRM_LABEL, NOT_FOUND_TEXT, manage_link, register_manage_routes
+from webapp.store.storage import DataStore, new_token
 
 CSV = b"lot,Ash,Fibre\nL-01,1.9,7.2\nL-02,2.1,6.8\nL-03,2.0,7.0\n"
 DASH_PAGE = "DASH CATCH-ALL PAGE"

@@ -24,9 +24,9 @@ from tests.app.conftest import iris_frame
 from webapp.analysis import ENGINE_VERSION
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.recipe import Recipe
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import AppConfig
-from webapp.report import (
+from webapp.web.report import (
     CAUTIONS,
     REPORT_FIGURES,
     build_report_html,

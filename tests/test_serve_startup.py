@@ -3,7 +3,7 @@
 Dash sets itself up lazily in its first request and marks that done before it
 is (plotly/dash#3971): under gunicorn's threaded workers, parallel first
 requests for Dash's scripts could be answered 500 ("... is not a registered
-library") and the page opened with no plots. ``webapp.server.warm_up`` finishes
+library") and the page opened with no plots. ``webapp.web.server.warm_up`` finishes
 the set-up in each worker before it serves; this test starts real servers
 (loopback only) and fires the page and every script it loads at once, as a
 browser opening the page does.
@@ -28,9 +28,9 @@ from pathlib import Path
 
 import pytest
 
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import AppConfig
-from webapp.server import warm_up
+from webapp.web.server import warm_up
 
 ROUNDS = 5
 PARALLEL_REQUESTS = 16

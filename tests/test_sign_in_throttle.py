@@ -10,10 +10,10 @@ from __future__ import annotations
 
 import pytest
 
-from webapp import access
-from webapp.access import FAILURE_BUDGET, SignInThrottle
-from webapp.access.throttle import FIRST_BLOCK_SECONDS, client_bucket
-from webapp.app import create_app
+from webapp.web import access
+from webapp.web.access import FAILURE_BUDGET, SignInThrottle
+from webapp.web.access.throttle import FIRST_BLOCK_SECONDS, client_bucket
+from webapp.web.app import create_app
 from webapp.config import AppConfig
 
 KEY = "t" * 24

@@ -98,6 +98,8 @@ valid_states = st.builds(
     saved_view=st.none() | tokens,
     present=st.booleans(),
     slide=st.integers(min_value=1, max_value=state_module.MAX_SLIDE),
+    slide_figure=st.sampled_from(state_module.SLIDE_FIGURES),
+    follow=st.none() | tokens,
 )
 
 
@@ -193,7 +195,7 @@ def test_default_query_spells_out_every_setting():
     assert to_query(ViewState()) == (
         "v=1&ds=&off=&ex=&exset=&tf=&missing=drop&centre=mean&scale=unit&id=auto&k=auto&conf=0.95"
         "&x=1&y=2&sigma=2&ellipse=group&t2ellipse=0&colour=auto&arrows=1&biplot=correlation"
-        "&labels=0&lpc=1&pick=&batch=&view=&present=0&slide=1"
+        "&labels=0&lpc=1&pick=&batch=&view=&present=0&slide=1&show=scores&follow="
     )
 
 
@@ -449,6 +451,8 @@ ALTERNATIVE_VALUES = {
     "saved_view": "Vw3xT0c9LrV2aZk8Qp",
     "present": True,
     "slide": 4,
+    "slide_figure": "variance",
+    "follow": "Fw3xT0c9LrV2aZk8Qp",
 }
 
 

@@ -22,9 +22,9 @@ from pathlib import Path
 import pytest
 
 from webapp.analysis.recipe import Recipe
-from webapp.compute import ComputeLayer, fit_key
-from webapp.file_lock import FileLock
-from webapp.storage import DataStore
+from webapp.store.compute import ComputeLayer, fit_key
+from webapp.store.file_lock import FileLock
+from webapp.store.storage import DataStore
 
 ROOT = Path(__file__).resolve().parents[1]
 CSV = "sample,a,b,c\n" + "".join(f"S{i},{i % 7}.5,{(i * 3) % 11}.25,{(i * 5) % 13}.0\n" for i in range(40))
@@ -35,8 +35,8 @@ HOLDER = textwrap.dedent("""
     import sys
     from webapp.analysis.pipeline import fit_recipe
     from webapp.analysis.recipe import Recipe
-    from webapp.compute import ComputeLayer, fit_key
-    from webapp.storage import DataStore
+    from webapp.store.compute import ComputeLayer, fit_key
+    from webapp.store.storage import DataStore
 
     data_dir, token = sys.argv[1], sys.argv[2]
     store = DataStore(data_dir)

@@ -1,4 +1,4 @@
-"""The streaming upload route (webapp/upload.py) on a bare Flask app.
+"""The streaming upload route (webapp/web/upload.py) on a bare Flask app.
 
 Status codes follow HTTP semantics, RFC 9110: 403 (15.5.4), 405 with an
 ``Allow`` header (15.5.6), 413 (15.5.14), 415 (15.5.16),
@@ -23,8 +23,8 @@ import pytest
 from werkzeug.test import EnvironBuilder
 
 from webapp.analysis.errors import OrdinateError
-from webapp.storage import CHUNK_BYTES, DataStore
-from webapp.upload import (
+from webapp.store.storage import CHUNK_BYTES, DataStore
+from webapp.web.upload import (
     NOT_KEPT_MESSAGE,
     SERVER_PROBLEM_MESSAGE,
     UPLOAD_PATH,
@@ -275,7 +275,7 @@ def test_a_failing_on_discard_still_answers_422_and_logs(store, caplog):
     def on_discard(record):
         raise RuntimeError("cache is gone")
 
-    with caplog.at_level(logging.ERROR, logger="webapp.upload"):
+    with caplog.at_level(logging.ERROR, logger="webapp.web.upload"):
         response = post(make_app(store, on_discard=on_discard).test_client(), b"BAD\n", filename="bad.csv")
 
     assert response.status_code == 422
@@ -360,7 +360,7 @@ def test_unexpected_error_gives_500_without_details_and_logs_them(store, caplog)
         raise RuntimeError("secret internal detail /srv/ordinate/config.py")
 
     client = make_app(store, inspect=broken_inspect).test_client()
-    with caplog.at_level(logging.ERROR, logger="webapp.upload"):
+    with caplog.at_level(logging.ERROR, logger="webapp.web.upload"):
         response = post(client, CSV)
 
     assert response.status_code == 500
@@ -376,7 +376,7 @@ def test_storage_failure_gives_500(store, monkeypatch, caplog):
         raise OSError(28, "No space left on device")
 
     monkeypatch.setattr(store, "add_stream", disk_full)
-    with caplog.at_level(logging.ERROR, logger="webapp.upload"):
+    with caplog.at_level(logging.ERROR, logger="webapp.web.upload"):
         response = post(make_app(store).test_client(), CSV)
 
     assert response.status_code == 500
@@ -440,7 +440,7 @@ def test_upload_script_parses_and_uses_the_agreed_ids():
 
 
 def test_a_refused_upload_leaves_no_cached_results_in_the_app(tmp_path, monkeypatch):
-    from webapp import app as app_module
+    from webapp.web import app as app_module
     from webapp.config import AppConfig
 
     def refuse_after_parsing(state, table):

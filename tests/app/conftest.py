@@ -6,7 +6,7 @@ import pandas as pd
 import pytest
 from sklearn.datasets import load_iris
 
-from webapp.app import DEMO_SETTING, create_app
+from webapp.web.app import DEMO_SETTING, create_app
 from webapp.config import AppConfig
 
 

@@ -14,10 +14,10 @@ from pathlib import Path
 
 import pytest
 
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import AppConfig
 from webapp.state import ViewState, parse_query, to_query
-from webapp.storage import DataStore
+from webapp.store.storage import DataStore
 from webapp.ui import layout as L
 from webapp.ui import view_model as vm
 from webapp.ui.callbacks import _search_if_changed
@@ -237,3 +237,42 @@ def test_abrupt_kill_during_saves_leaves_no_half_written_view(tmp_path):
     assert all(v.title.startswith("k") and v.dataset_token == token for v in views)
     stored = [key for key in reopened.index.iterkeys() if key[0] == "view"]
     assert len(stored) == len(listed_ids)  # no view outside the list either
+
+
+def _texts(component) -> str:
+    """All text of a Dash component tree, Markdown sources included."""
+    if isinstance(component, str):
+        return component
+    if isinstance(component, (list, tuple)):
+        return " ".join(_texts(c) for c in component)
+    children = getattr(component, "children", None)
+    return _texts(children) if children is not None else ""
+
+
+def test_presenter_notes_are_for_the_presenter_only(services, iris_token):
+    from webapp.ui.sharing import saved_banner, split_presenter_note
+
+    note = "Species separate on PC1.\n\nPresenter only:\nAsk Bo about the two odd *setosa* samples."
+    assert split_presenter_note(note) == ("Species separate on PC1.", "Ask Bo about the two odd *setosa* samples.")
+    assert split_presenter_note("No mark here.") == ("No mark here.", "")
+    view = vm.save_view(services, ViewState(dataset=iris_token), title="Species", note=note, author="", parent=None)
+    state = ViewState(dataset=iris_token, saved_view=view.view_id, present=True)
+    info = vm.saved_view_info(services, state)
+    presenter = _texts(saved_banner(info, state, "/"))
+    attendee = _texts(saved_banner(info, state.replace(follow="F" * 20), "/"))
+    assert "Species separate on PC1." in presenter and "Ask Bo" in presenter
+    assert "Species separate on PC1." in attendee and "Ask Bo" not in attendee and "Presenter only" not in attendee
+
+
+def test_first_last_and_the_ends_of_a_presentation(services, iris_token):
+    from webapp.ui import layout as L
+    from webapp.ui.sharing import presentation_step
+
+    for title in ("one", "two", "three"):
+        vm.save_view(services, ViewState(dataset=iris_token), title=title, note="", author="", parent=None)
+    middle = ViewState(dataset=iris_token, present=True, slide=2)
+    assert presentation_step(services, middle, L.SLIDE_LAST).slide == 3
+    assert presentation_step(services, middle, L.SLIDE_FIRST).slide == 1
+    assert presentation_step(services, middle.replace(slide=3), L.SLIDE_NEXT).slide == 3  # stays at the end
+    left = presentation_step(services, middle.replace(follow="F" * 20), L.PRESENT_EXIT)
+    assert not left.present and left.follow is None

@@ -65,7 +65,7 @@ def test_visual_changes_do_not_refit(services, iris_token):
 
 
 def test_identical_request_from_another_process_view_reuses_disk_cache(app, services, iris_token, tmp_path):
-    from webapp.app import create_services
+    from webapp.web.app import create_services
 
     vm.build_view(services, ViewState(dataset=iris_token), wait=True)
     other = create_services(services.config)  # a second worker: same data dir, empty memory
@@ -137,7 +137,7 @@ def test_variable_correlations_match_numpy(services, iris_token):
 
 
 def test_start_page_without_demo_invites_an_upload(tmp_path):
-    from webapp.app import create_app
+    from webapp.web.app import create_app
     from webapp.config import AppConfig
     from webapp.ui.callbacks import _not_found_outputs
 
@@ -210,12 +210,12 @@ def test_first_view_comes_before_parallel_analysis_and_completes_without_refit(s
 
 
 def test_a_failed_parallel_analysis_does_not_leave_the_page_waiting(services, iris_token, monkeypatch):
-    import webapp.compute
+    import webapp.store.compute
 
     def broken(_fitted):
         raise MemoryError("simulated")
 
-    monkeypatch.setattr(webapp.compute, "parallel_advice", broken)
+    monkeypatch.setattr(webapp.store.compute, "parallel_advice", broken)
     state = ViewState(dataset=iris_token, scaling="range")
     assert not vm.build_view(services, state).complete
     vm.parallel_analysis_done(services, state)
@@ -372,7 +372,7 @@ def test_sample_sets_are_deleted_with_their_dataset(services):
 def test_forgetting_a_dataset_waits_for_results_still_being_written(services, monkeypatch):
     # Results reach the disk cache after the request has them; a deletion in that
     # moment must not leave them behind (the write is slowed down here to show it).
-    from webapp.compute import ComputeLayer
+    from webapp.store.compute import ComputeLayer
 
     write = ComputeLayer._write_and_release
 
@@ -408,7 +408,9 @@ def test_a_panel_that_fails_to_draw_says_why_and_the_others_still_draw(services,
     def broken(*_args, **_kwargs):
         raise OrdinateError("These correlations cannot be drawn.")
 
-    monkeypatch.setattr(vm, "correlation_circle_figure", broken)
+    from webapp.ui import variable_panels
+
+    monkeypatch.setattr(variable_panels, "correlation_circle_figure", broken)
     outputs, _, _ = cb._draw(services, "?" + to_query(ViewState(dataset=iris_token)), first=False)
     assert no_update not in outputs  # no panel keeps what the page showed before
     figures = _figure_outputs(cb._REST_OUTPUTS, outputs)

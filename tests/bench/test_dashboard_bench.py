@@ -22,7 +22,7 @@ from werkzeug.serving import make_server
 
 from tests.bench.test_engine_bench import _median_seconds, _record
 from tests.conftest import pytest_setup_options
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import AppConfig
 from webapp.state import ViewState, to_query
 from webapp.ui import callbacks

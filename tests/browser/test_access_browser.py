@@ -14,7 +14,7 @@ from tests.browser.test_dashboard import (
     _wait_for,
     _wait_for_parallel_analysis,
 )
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import AppConfig
 
 pytestmark = pytest.mark.browser

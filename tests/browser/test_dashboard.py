@@ -17,7 +17,7 @@ from selenium.webdriver.common.keys import Keys
 
 from tests.app.conftest import iris_frame
 from tests.conftest import pytest_setup_options
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import AppConfig
 
 pytestmark = pytest.mark.browser

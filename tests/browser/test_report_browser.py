@@ -16,9 +16,9 @@ from selenium.webdriver.chrome.service import Service
 from tests.app.conftest import iris_frame
 from tests.conftest import pytest_setup_options
 from webapp.analysis import ENGINE_VERSION
-from webapp.app import create_app
+from webapp.web.app import create_app
 from webapp.config import AppConfig
-from webapp.report import REPORT_FIGURES, write_report
+from webapp.web.report import REPORT_FIGURES, write_report
 from webapp.state import ViewState, to_query
 
 pytestmark = pytest.mark.browser

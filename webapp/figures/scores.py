@@ -297,6 +297,11 @@ def _ellipse_traces(
     return traces
 
 
+def _slide_legend() -> dict:
+    return dict(traceorder="grouped", groupclick="toggleitem", orientation="v",
+                x=1.02, xanchor="left", y=1.0, yanchor="top", bgcolor="rgba(255,255,255,0)")
+
+
 def _legend_group(group: str | None) -> str:
     return "group:" + (ALL_SAMPLES_GROUP if group is None else group)
 
@@ -442,12 +447,17 @@ def scores_figure(
         style,
         title=title,
         notes=notes,
-        xaxis=axis_style(x_title),
-        yaxis={**axis_style(y_title), "scaleanchor": "x", "scaleratio": 1},
-        # Legend below the plot: with an equal aspect ratio, a side legend
+        # Equal aspect ratio. On a slide the axes shrink to fit the data ("domain") rather
+        # than stretching the range across a wide screen.
+        xaxis={**axis_style(x_title), **({"constrain": "domain"} if presentation else {})},
+        yaxis={**axis_style(y_title), "scaleanchor": "x", "scaleratio": 1,
+               **({"constrain": "domain"} if presentation else {})},
+        # Legend below the plot elsewhere: with an equal aspect ratio, a side legend
         # would take width the scores need.
-        legend=dict(traceorder="grouped", groupclick="toggleitem", orientation="h",
-                    x=0.0, xanchor="left", y=-0.14, yanchor="top", bgcolor="rgba(255,255,255,0)"),
+        # On a slide the side is free (the axes fit the data) and the legend goes there.
+        legend=_slide_legend() if presentation else dict(
+            traceorder="grouped", groupclick="toggleitem", orientation="h",
+            x=0.0, xanchor="left", y=-0.14, yanchor="top", bgcolor="rgba(255,255,255,0)"),
         dragmode="lasso" if not use_density else "zoom",
     )
 

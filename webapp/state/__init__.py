@@ -42,56 +42,9 @@ Versioning: ``STATE_VERSION`` is the format that ``to_query`` writes (parameter
 
 from __future__ import annotations
 
-from webapp.state.url_codec import (
-    DIAGNOSTIC_PARAMETERS,
-    DRAWING_PARAMETERS,
-    PARAMETERS,
-    RECIPE_PARAMETERS,
-    STATE_VERSION,
-    UrlParameter,
-    parse_query,
-    to_query,
-)
-from webapp.state.view_state import (
-    BIPLOT_SCALINGS,
-    CENTRINGS,
-    ELLIPSE_MODES,
-    MAX_CONFIDENCE,
-    MAX_PC,
-    MAX_SIGMA,
-    MAX_SIGMA_LEVELS,
-    MAX_SLIDE,
-    MIN_CONFIDENCE,
-    MISSING_POLICIES,
-    NO_COLOUR,
-    SCALINGS,
-    TRANSFORMS,
-    ViewState,
-    ViewStateError,
-)
+# The package's interface is its two modules' interfaces, re-exported.
+from webapp.state import url_codec, view_state
+from webapp.state.url_codec import *  # noqa: F403
+from webapp.state.view_state import *  # noqa: F403
 
-__all__ = [
-    "STATE_VERSION",
-    "ViewState",
-    "ViewStateError",
-    "NO_COLOUR",
-    "MISSING_POLICIES",
-    "CENTRINGS",
-    "SCALINGS",
-    "TRANSFORMS",
-    "ELLIPSE_MODES",
-    "BIPLOT_SCALINGS",
-    "MAX_PC",
-    "MAX_SIGMA_LEVELS",
-    "MAX_SIGMA",
-    "MIN_CONFIDENCE",
-    "MAX_CONFIDENCE",
-    "MAX_SLIDE",
-    "PARAMETERS",
-    "UrlParameter",
-    "RECIPE_PARAMETERS",
-    "DIAGNOSTIC_PARAMETERS",
-    "DRAWING_PARAMETERS",
-    "parse_query",
-    "to_query",
-]
+__all__ = [*view_state.__all__, *url_codec.__all__]

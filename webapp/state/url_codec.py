@@ -14,6 +14,7 @@ from urllib.parse import parse_qsl, quote, urlencode
 
 from webapp.state.view_state import (
     BIPLOT_SCALINGS,
+    SLIDE_FIGURES,
     CENTRINGS,
     ELLIPSE_MODES,
     MAX_CONFIDENCE,
@@ -250,6 +251,8 @@ PARAMETERS: tuple[UrlParameter, ...] = (
     UrlParameter("view", "saved_view", "drawing", _read_token, _write_optional),
     UrlParameter("present", "present", "drawing", _read_flag, _write_flag),
     UrlParameter("slide", "slide", "drawing", _read_whole(1, MAX_SLIDE), str),
+    UrlParameter("show", "slide_figure", "drawing", _read_choice(SLIDE_FIGURES), str),
+    UrlParameter("follow", "follow", "drawing", _read_token, _write_optional),
 )
 """Every view parameter in the order ``to_query`` writes it (after ``v``)."""
 

@@ -24,6 +24,7 @@ __all__ = [
     "TRANSFORMS",
     "ELLIPSE_MODES",
     "BIPLOT_SCALINGS",
+    "SLIDE_FIGURES",
     "MAX_PC",
     "MAX_SIGMA_LEVELS",
     "MAX_SIGMA",
@@ -40,6 +41,8 @@ SCALINGS: tuple[str, ...] = ("unit", "none", "pareto", "range")
 TRANSFORMS: tuple[str, ...] = ("none", "log10", "ln", "log1p", "sqrt")
 ELLIPSE_MODES: tuple[str, ...] = ("group", "all")
 BIPLOT_SCALINGS: tuple[str, ...] = ("correlation", "distance")
+# The figure a saved view shows as a slide, filling the screen.
+SLIDE_FIGURES: tuple[str, ...] = ("scores", "variance", "diagnostics", "loadings")
 
 #: ``ViewState.colour_by`` value meaning "do not colour the points" (URL: ``colour=none``).
 NO_COLOUR = ""
@@ -212,9 +215,11 @@ class ViewState:
     saved_view: str | None = None
     present: bool = False
     slide: int = 1
+    slide_figure: str = "scores"
+    follow: str | None = None  # code of a presenter's follow session this page follows (read-only)
 
     def __post_init__(self) -> None:
-        for name in ("dataset", "batch", "excluded_set"):
+        for name in ("dataset", "batch", "excluded_set", "follow"):
             code = getattr(self, name)
             if code is not None and not (isinstance(code, str) and _TOKEN_PATTERN.fullmatch(code)):
                 raise ViewStateError(
@@ -247,6 +252,7 @@ class ViewState:
             "saved_view": _check_view_id(self.saved_view),
             "present": _check_bool(self.present, "present"),
             "slide": _check_int(self.slide, 1, MAX_SLIDE, "slide"),
+            "slide_figure": _check_choice(self.slide_figure, SLIDE_FIGURES, "slide_figure"),
         }
         for name, value in canonical.items():
             object.__setattr__(self, name, value)

@@ -6,9 +6,18 @@ children, which Dash escapes; nothing here renders raw HTML.
 
 from __future__ import annotations
 
+import flask
 from dash import html
 
 from webapp.ui.layout import BATCH_REMOVE
+
+
+def base_url() -> str:
+    """This server's address as the browser reached it (for links to copy), or "/" outside a request."""
+    try:
+        return flask.request.host_url
+    except RuntimeError:  # outside a request (tests calling builders directly)
+        return "/"
 
 
 def notice_list(notices, errors) -> list:

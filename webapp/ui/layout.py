@@ -86,6 +86,7 @@ SAVE_PANEL = "save-panel"
 SAVE_TITLE = "save-title"
 SAVE_NOTE = "save-note"
 SAVE_AUTHOR = "save-author"
+SAVE_FIGURE = "save-figure"
 SAVE_CONFIRM = "save-confirm"
 SAVE_CANCEL = "save-cancel"
 SAVE_RESULT = "save-result"
@@ -98,8 +99,23 @@ SLIDE_NEXT = "slide-next"
 SLIDE_POSITION = "slide-position"
 PRESENT_EXIT = "present-exit"
 FULL_SCREEN = "full-screen"
+SLIDE_FIRST = "slide-first"
+SLIDE_LAST = "slide-last"
+FOLLOW_START = "follow-start"
+FOLLOW_LINK = "follow-link"
+FOLLOW_SESSION = "follow-session"  # the presenter's {code, key}: this tab only, never in a URL
+FOLLOW_REVISION = "follow-revision"  # the presenter's revision an attendee's page shows
+FOLLOW_POLL = "follow-poll"
+FOLLOW_POLL_MS = 400
+FOLLOW_BANNER = "follow-banner"
 
 CONFIDENCE_CHOICES = (0.9, 0.95, 0.99, 0.999)
+SLIDE_FIGURE_WORDS = {
+    "scores": "Scores plot / biplot",
+    "variance": "Variance explained",
+    "diagnostics": "T² and Q diagnostics",
+    "loadings": "Loadings and correlation circle",
+}
 _WORDS = {
     "drop": "Leave samples out",
     "mean": "Fill with the mean",
@@ -126,11 +142,15 @@ def build_layout(config) -> html.Div:
             dcc.Store(id=SHOWN_FIRST),
             dcc.Store(id=SHOWN_REST),
             dcc.Store(id=ORIGIN_VIEW, storage_type="session"),
+            dcc.Store(id=FOLLOW_SESSION, storage_type="session"),
+            dcc.Store(id=FOLLOW_REVISION),
+            dcc.Interval(id=FOLLOW_POLL, interval=FOLLOW_POLL_MS, disabled=True),
             # Manage links of datasets uploaded from this browser: kept locally, never in the URL.
             dcc.Store(id=MANAGE_LINKS, storage_type="local"),
             _top_bar(config),
             _save_panel(),
             _present_bar(),
+            html.Div(id=FOLLOW_BANNER, className="follow-banner", role="status", hidden=True),
             html.Div(id=NOTICES, className="notices", role="status", **{"aria-live": "polite"}),
             html.Div(id=NOT_FOUND, className="not-found", hidden=True),
             html.Div(id=WORKSPACE, className="workspace", children=[_recipe_rail(), _cards()]),
@@ -195,7 +215,11 @@ def _save_panel() -> html.Section:
                                   placeholder="e.g. Site comparison, PC1–PC2")),
         _field("Note (Markdown)", dcc.Textarea(id=SAVE_NOTE, maxLength=20000, className="note-input",
                                                placeholder="What the team should see in this view")),
+        html.P("Lines after a line reading “Presenter only:” are shown to the presenter, "
+               "not to people following the presentation.", className="quiet"),
         _field("Your name (optional)", dcc.Input(id=SAVE_AUTHOR, type="text", maxLength=100, className="text-input")),
+        _field("Figure shown when presenting", dcc.Dropdown(id=SAVE_FIGURE, clearable=False, value="scores", options=[
+            {"label": words, "value": value} for value, words in SLIDE_FIGURE_WORDS.items()])),
         html.Div(className="save-actions", children=[
             html.Button("Save", id=SAVE_CONFIRM, n_clicks=0, className="primary-button"),
             html.Button("Close", id=SAVE_CANCEL, n_clicks=0, className="small-button"),
@@ -206,10 +230,15 @@ def _save_panel() -> html.Section:
 
 def _present_bar() -> html.Nav:
     return html.Nav(id=PRESENT_BAR, className="present-bar", hidden=True, **{"aria-label": "Presentation"}, children=[
+        html.Button("First", id=SLIDE_FIRST, n_clicks=0, className="bar-button", title="First view (Home)"),
         html.Button("◀ Previous", id=SLIDE_PREV, n_clicks=0, className="bar-button", title="Previous view (←)"),
-        html.Span(id=SLIDE_POSITION, className="slide-position"),
+        html.Span(id=SLIDE_POSITION, className="slide-position", **{"aria-live": "polite"}),
         html.Button("Next ▶", id=SLIDE_NEXT, n_clicks=0, className="bar-button", title="Next view (→)"),
+        html.Button("Last", id=SLIDE_LAST, n_clicks=0, className="bar-button", title="Last view (End)"),
         html.Button("Full screen", id=FULL_SCREEN, n_clicks=0, className="bar-button", title="Full screen (F)"),
+        html.Button("Follow link", id=FOLLOW_START, n_clicks=0, className="bar-button",
+                    title="A link that lets attendees follow this presentation on their own screens"),
+        html.Span(id=FOLLOW_LINK, className="follow-link"),
         html.Button("Leave presentation", id=PRESENT_EXIT, n_clicks=0, className="bar-button"),
     ])
 

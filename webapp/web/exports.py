@@ -32,8 +32,6 @@ import json
 import logging
 import math
 import numbers
-import re
-import unicodedata
 from typing import Any
 
 import flask
@@ -42,10 +40,11 @@ import pandas as pd
 
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.model_io import model_from_analysis, model_to_dict
-from webapp.analysis.pipeline import Analysis, Diagnostics, diagnose
+from webapp.analysis.pipeline import Analysis
 from webapp.figures import variance_table_rows
 from webapp.figures.variance import TABLE_COLUMNS
 from webapp.state import NO_COLOUR, ViewState, parse_query
+from webapp.web.filenames import dataset_stem, safe_filename
 
 __all__ = [
     "CSV_KINDS",
@@ -163,22 +162,6 @@ def _cell_text(value: Any) -> str:
     return escape_csv_cell(str(value))
 
 
-def safe_filename(stem: str, suffix: str, *, fallback: str = "ordinate") -> str:
-    """An ASCII file name for ``Content-Disposition``: letters, digits, ``.``, ``_`` and ``-`` only.
-
-    Accents are dropped (``Viskosität`` -> ``Viskositat``), any other run of
-    characters becomes one ``-``; at most 80 characters before ``suffix``.
-    """
-    ascii_text = unicodedata.normalize("NFKD", str(stem)).encode("ascii", "ignore").decode("ascii")
-    cleaned = re.sub(r"[^A-Za-z0-9._]+", "-", ascii_text).strip("-._")[:80].strip("-._")
-    return f"{cleaned or fallback}{suffix}"
-
-
-def _dataset_stem(filename: str) -> str:
-    stem = filename.rsplit(".", 1)[0] if "." in filename.strip(".") else filename
-    return stem
-
-
 # --------------------------------------------------------------------------------------
 # Tables from a resolved view (pure: no I/O)
 # --------------------------------------------------------------------------------------
@@ -200,13 +183,6 @@ def _colour_column(state: ViewState, table) -> str | None:
     if not column or column == NO_COLOUR or column not in table.frame.columns:
         return None
     return column
-
-
-def view_diagnostics(resolved, state: ViewState) -> Diagnostics:
-    """T², Q and limits at the view's K (clamped to what the fit has) and confidence."""
-    from webapp.ui.view_model import components_choice
-
-    return diagnose(resolved.fitted, components_choice(state, resolved.fitted), state.confidence)
 
 
 def scores_frame(resolved, state: ViewState) -> pd.DataFrame:
@@ -254,6 +230,8 @@ def variance_frame(resolved, state: ViewState) -> pd.DataFrame:
     in full precision, percentages in %, rule columns ``yes``/``no`` (empty
     when parallel analysis was not run), ``Kept`` for components 1..K.
     """
+    from webapp.ui.view_model import view_diagnostics
+
     fitted = resolved.fitted
     pca, advice = fitted.pca, fitted.advice
     rows_shown = min(pca.eigenvalues.size, MAX_VARIANCE_ROWS)
@@ -282,6 +260,8 @@ def diagnostics_frame(resolved, state: ViewState) -> pd.DataFrame:
     T² limit: the form for samples in the model (see docs/methods.md); it is
     ``inf`` when K is not smaller than the number of samples.
     """
+    from webapp.ui.view_model import view_diagnostics
+
     fitted = resolved.fitted
     diagnostics = view_diagnostics(resolved, state)
     n = fitted.pca.n_samples
@@ -304,6 +284,8 @@ def batch_frame(services, resolved, state: ViewState) -> pd.DataFrame:
     The T² limit is the form for new samples (Tracy, Young & Mason 1992), wider
     than the one for the model's own samples; see docs/methods.md.
     """
+    from webapp.ui.view_model import view_diagnostics
+
     from webapp.ui.view_model import score_batch
 
     record = services.store.dataset(state.batch) if state.batch else None
@@ -359,7 +341,7 @@ def export_csv(services, state: ViewState, kind: str) -> tuple[str, str]:
         raise ValueError(f"unknown export kind {kind!r}")
     resolved = _resolve(services, state)
     frame = batch_frame(services, resolved, state) if kind == "batch" else _BUILDERS[kind](resolved, state)
-    return to_safe_csv(frame), safe_filename(_dataset_stem(resolved.record.filename), f"-{kind}.csv")
+    return to_safe_csv(frame), safe_filename(dataset_stem(resolved.record.filename), f"-{kind}.csv")
 
 
 def export_model_json(services, state: ViewState) -> tuple[str, str]:
@@ -369,10 +351,12 @@ def export_model_json(services, state: ViewState) -> tuple[str, str]:
     loads with :func:`webapp.analysis.model_io.load_model` and scores new
     samples with ``ordinate project``. K and the confidence are the view's.
     """
+    from webapp.ui.view_model import view_diagnostics
+
     resolved = _resolve(services, state)
     analysis = Analysis(resolved.fitted, view_diagnostics(resolved, state))
     text = json.dumps(model_to_dict(model_from_analysis(analysis)), indent=1, ensure_ascii=False)
-    return text, safe_filename(_dataset_stem(resolved.record.filename), "-model.json")
+    return text, safe_filename(dataset_stem(resolved.record.filename), "-model.json")
 
 
 # --------------------------------------------------------------------------------------
@@ -412,7 +396,7 @@ def register_export_routes(server: flask.Flask, services) -> None:
         return _attachment(text, name, mimetype)
 
     def view_report(view_id: str):
-        from webapp.report import build_report_html, report_filename
+        from webapp.web.report import build_report_html, report_filename
 
         saved = services.store.view(view_id)
         if saved is None:

@@ -121,13 +121,13 @@ def _add_datasets(commands) -> None:
 
 
 def _admin():
-    from webapp import admin
+    from webapp.cli import admin
 
     return admin
 
 
 def _run_report(args) -> int:
-    from webapp.report import report_main
+    from webapp.web.report import report_main
 
     return report_main(args.data_dir, args.view_id, args.out)
 
@@ -178,8 +178,8 @@ def _run_project(args) -> int:
 
 
 def _run_serve(args) -> int:
-    from webapp.access import AccessConfigError, access_policy, key_file_warning, resolve_access_key
-    from webapp.server import serve
+    from webapp.web.access import AccessConfigError, access_policy, key_file_warning, resolve_access_key
+    from webapp.web.server import serve
 
     try:
         policy = access_policy(args.host, resolve_access_key(args.access_key_file), args.no_access_key)

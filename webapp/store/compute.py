@@ -45,14 +45,14 @@ from webapp.analysis.pipeline import (
     with_parallel_analysis,
 )
 from webapp.analysis.recipe import Recipe
-from webapp.file_lock import FileLock
-from webapp.storage import DataStore, DatasetRecord
+from webapp.store.file_lock import FileLock
+from webapp.store.storage import DataStore, DatasetRecord
 
 DEFAULT_CACHE_BYTES = 8 * 2**30
 MEMO_ENTRIES = 6  # a table, its fit and advice, and those of the view before
 DRAWING_MEMO_ENTRIES = 32
 # A live holder still computing after this long is presumed stuck: the waiter computes
-# the result itself. A holder that died releases its lock at once (see webapp.file_lock).
+# the result itself. A holder that died releases its lock at once (see webapp.store.file_lock).
 LOCK_SECONDS = 900
 LOCK_DIR = "locks"
 

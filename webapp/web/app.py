@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import html
 import logging
-from dataclasses import dataclass
 from pathlib import Path
 
 import dash
@@ -18,37 +17,20 @@ import plotly.graph_objects as go
 from flask import redirect, request
 
 from webapp import __version__
-from webapp.access import AccessConfigError, register_access_control, register_content_security_policy
+from webapp.web.access import AccessConfigError, register_access_control, register_content_security_policy
 from webapp.analysis.errors import OrdinateError
-from webapp.compute import ComputeLayer
-from webapp.config import DEMO_TITLE, AppConfig
-from webapp.datadir import secure_data_dir
-from webapp.exports import register_export_routes
-from webapp.manage import manage_link, register_manage_routes
+from webapp.config import REPOSITORY_ROOT, AppConfig
+from webapp.web.exports import register_export_routes
+from webapp.web.manage import manage_link, register_manage_routes
 from webapp.state import ViewState, parse_query, to_query
-from webapp.storage import DataStore
+from webapp.store.services import DEMO_SETTING, Services, create_services, ensure_demo, forget_results_if_unused
 from webapp.ui.callbacks import register_callbacks
 from webapp.ui.layout import build_layout
 from webapp.ui.view_model import recipe_for, table_summary
-from webapp.upload import register_upload_route
+from webapp.web.upload import register_upload_route
 
-ASSETS = Path(__file__).resolve().parent.parent / "assets"
-DEMO_SETTING = "demo-token"
+ASSETS = REPOSITORY_ROOT / "assets"
 log = logging.getLogger("ordinate")
-
-
-@dataclass(frozen=True)
-class Services:
-    config: AppConfig
-    store: DataStore
-    compute: ComputeLayer
-
-
-def create_services(config: AppConfig) -> Services:
-    secure_data_dir(config.data_dir)
-    store = DataStore(config.data_dir)
-    compute = ComputeLayer(store, Path(config.data_dir) / "results")
-    return Services(config, store, compute)
 
 
 def create_app(config: AppConfig | None = None) -> dash.Dash:
@@ -67,20 +49,21 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
             "This server needs a team access key: set ORDINATE_ACCESS_KEY or pass --access-key-file.")
     # Always registered: without a key it only adds security headers.
     register_access_control(app.server, access_key=config.access_key, secret_dir=Path(config.data_dir))
-    register_manage_routes(app.server, services.store, on_delete=lambda record: _forget_if_unused(services, record))
+    register_manage_routes(app.server, services.store, on_delete=lambda record: forget_results_if_unused(services, record))
     register_export_routes(app.server, services)
     app.layout = build_layout(config)
     register_callbacks(app, services)
     register_content_security_policy(app)
     register_upload_route(app.server, services.store, limit_bytes=config.max_upload_bytes,
                           inspect=lambda record: _inspect_upload(services, record),
-                          on_discard=lambda record: _forget_if_unused(services, record))
-    _ensure_demo(services)
+                          on_discard=lambda record: forget_results_if_unused(services, record))
+    ensure_demo(services)
     # Plotly reads its property schema when the first figure of a process is made
     # (about 0.1 s); pay that now rather than in the first user's first view.
     go.Figure()
     _register_start_page(app, services)
     _register_short_links(app, services)
+    _register_follow_links(app, services)
     app.server.config["ordinate.services"] = services
     return app
 
@@ -98,20 +81,6 @@ def _inspect_upload(services: Services, record) -> dict:
         recipe, _ = recipe_for(ViewState(dataset=record.token), table)
         services.compute.fit_in_background(record, recipe, parallel=False)
     return {**table_summary(record, table), "manage": manage_link(record)}
-
-
-def _forget_if_unused(services: Services, record) -> None:
-    if not services.store.blob_path(record).exists():
-        services.compute.forget(record.content_hash)
-
-
-def _ensure_demo(services: Services) -> None:
-    demo = services.config.demo_dataset
-    if demo is None or services.store.get_setting(DEMO_SETTING) or not Path(demo).exists():
-        return
-    record = services.store.add_bytes(Path(demo).read_bytes(), Path(demo).name, title=DEMO_TITLE)
-    if not services.store.add_if_absent(DEMO_SETTING, record.token):
-        log.info("another worker registered the demo dataset first")
 
 
 def _register_start_page(app: dash.Dash, services: Services) -> None:
@@ -143,6 +112,20 @@ def _register_short_links(app: dash.Dash, services: Services) -> None:
         return redirect("/?" + to_query(state), code=302)
 
 
+def _register_follow_links(app: dash.Dash, services: Services) -> None:
+    """/follow/<code>: an attendee's way in, redirecting to the presenter's current view, followed."""
+
+    @app.server.route("/follow/<code>")
+    def open_follow_link(code: str):
+        session = services.follows.get(code)
+        if session is None:
+            return _plain_page("Follow link not found",
+                               "This follow link is not known here. It may be mistyped or cut short, "
+                               "or the presentation ended long ago."), 404
+        state, _ = parse_query(session.query)
+        return redirect("/?" + to_query(state.replace(follow=session.code)), code=302)
+
+
 def _plain_page(title: str, message: str) -> str:
     return (
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>Ordinate</title>"
@@ -152,4 +135,4 @@ def _plain_page(title: str, message: str) -> str:
     )
 
 
-__all__ = ["create_app", "create_services", "Services", "OrdinateError", "__version__"]
+__all__ = ["DEMO_SETTING", "create_app", "create_services", "Services", "OrdinateError", "__version__"]

@@ -1,6 +1,6 @@
 """``ordinate serve``: the dashboard under a production WSGI server (gunicorn).
 
-Each worker process builds its own app with :func:`webapp.app.create_app` from
+Each worker process builds its own app with :func:`webapp.web.app.create_app` from
 the same configuration; workers share nothing but the data directory, whose
 stores (diskcache/SQLite) are safe across processes. Several threads per
 worker keep the page responsive while a long computation runs.
@@ -18,9 +18,9 @@ import logging
 import sys
 from pathlib import Path
 
-from webapp.access import SIGN_IN_PATH
+from webapp.web.access import SIGN_IN_PATH
 from webapp.config import AppConfig
-from webapp.datadir import secure_data_dir
+from webapp.store.datadir import secure_data_dir
 
 log = logging.getLogger("ordinate.server")
 
@@ -38,7 +38,7 @@ def serve(*, host: str, port: int, data_dir: Path, workers: int, max_upload_mb: 
     # Before anything is created: the data directory and all in it stay owner-only.
     secure_data_dir(config.data_dir)
     # Build once in the parent so the demo dataset is registered before workers start.
-    from webapp.app import create_app
+    from webapp.web.app import create_app
 
     create_app(config)
 

@@ -5,7 +5,7 @@ sends it again with every callback that reads it; that is fine for a few
 megabytes and breaks down well before 100 MB (plotly/dash-docs#1135,
 plotly/dash#2869), and its ``max_size`` fails silently (plotly/dash#2638).
 Instead, ``assets/upload.js`` POSTs the raw file once to :data:`UPLOAD_PATH`;
-this module copies the request body to the :class:`~webapp.storage.DataStore`
+this module copies the request body to the :class:`~webapp.store.storage.DataStore`
 in chunks, asks the app to inspect it, and answers with a token the Dash side
 keeps. The file is never held whole in memory by this route.
 
@@ -50,7 +50,7 @@ Security
   answers 405). Requiring the header therefore blocks cross-site uploads
   (OWASP CSRF prevention cheat sheet, "custom request headers").
 * The file name is shown to people only; paths are built from the content
-  hash by :class:`~webapp.storage.DataStore`.
+  hash by :class:`~webapp.store.storage.DataStore`.
 * A file that cannot be used is not kept: the uploader receives no manage link
   for it, so nobody could delete a wrong (perhaps confidential) file later. Its
   dataset record goes, its bytes unless another dataset holds the same bytes,
@@ -69,7 +69,7 @@ import flask
 from werkzeug.exceptions import ClientDisconnected, MethodNotAllowed, RequestEntityTooLarge
 
 from webapp.analysis.errors import OrdinateError
-from webapp.storage import CHUNK_BYTES, DataStore, DatasetRecord, UploadTooLarge
+from webapp.store.storage import CHUNK_BYTES, DataStore, DatasetRecord, UploadTooLarge
 
 __all__ = [
     "UPLOAD_PATH",

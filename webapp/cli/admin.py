@@ -55,7 +55,7 @@ def delete_main(data_dir: Path, token: str, *, confirmed: bool) -> int:
 
 
 def _services(data_dir: Path):
-    from webapp.app import create_services
+    from webapp.store.services import create_services
     from webapp.config import AppConfig
 
     data_dir = Path(data_dir)

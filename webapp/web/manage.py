@@ -1,6 +1,6 @@
 """The uploader's private page for one dataset: details, saved views, rename, delete.
 
-Every dataset has two secrets (see :mod:`webapp.storage`): its ``token``, which
+Every dataset has two secrets (see :mod:`webapp.store.storage`): its ``token``, which
 opens the analysis and goes into every shared link, and its ``manage_key``,
 which only the uploader receives, in the link :func:`manage_link` builds::
 
@@ -43,7 +43,7 @@ from urllib.parse import quote
 
 import flask
 
-from webapp.storage import DataStore, DatasetRecord, SavedView, is_token
+from webapp.store.storage import DataStore, DatasetRecord, SavedView, is_token
 
 __all__ = ["MANAGE_PREFIX", "manage_link", "register_manage_routes"]
 
@@ -193,7 +193,7 @@ def _when(timestamp: float) -> str:
 
 
 def _size(size_bytes: int) -> str:
-    # 1 MB = 1024 * 1024 bytes, as in webapp.upload
+    # 1 MB = 1024 * 1024 bytes, as in webapp.web.upload
     if size_bytes < 1024:
         return f"{size_bytes} bytes"
     for unit, factor in (("GB", 1024**3), ("MB", 1024**2), ("KB", 1024)):

@@ -11,7 +11,7 @@ Design notes (see also docs/deployment.md):
 * Cookie flags: HttpOnly (page scripts cannot read it), SameSite=Lax (browsers
   do not send it with cross-site POSTs, which is the CSRF defence for the Dash
   callbacks), Secure when the request arrived over HTTPS, 30 days.
-* Wrong keys are counted per client address (:mod:`webapp.access.throttle`);
+* Wrong keys are counted per client address (:mod:`webapp.web.access.throttle`);
   an address over its budget gets ``429`` with ``Retry-After`` and its key is
   not even compared. Nothing sleeps, so guessers hold no server thread.
 * ``next`` (where to go after signing in) is accepted only as a same-site
@@ -30,14 +30,14 @@ from urllib.parse import quote, urlsplit
 import flask
 from itsdangerous import BadSignature
 
-from webapp.access.keys import (
+from webapp.web.access.keys import (
     MAX_KEY_LENGTH,
     check_key,
     cookie_serializer,
     key_fingerprint,
     load_or_create_secret,
 )
-from webapp.access.pages import (
+from webapp.web.access.pages import (
     CROSS_SITE_MESSAGE,
     SIGN_IN_PATH,
     SIGN_IN_REQUIRED_MESSAGE,
@@ -48,7 +48,7 @@ from webapp.access.pages import (
     sign_out_page,
     too_many_attempts_message,
 )
-from webapp.access.throttle import THROTTLE_DIR_NAME, Clock, SignInThrottle, client_address
+from webapp.web.access.throttle import THROTTLE_DIR_NAME, Clock, SignInThrottle, client_address
 
 log = logging.getLogger("ordinate.access")
 

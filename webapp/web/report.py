@@ -33,12 +33,12 @@ from markdown_it import MarkdownIt
 from webapp import __version__
 from webapp.analysis import ENGINE_VERSION
 from webapp.analysis.errors import OrdinateError
-from webapp.exports import _dataset_stem, safe_filename, view_diagnostics
+from webapp.web.filenames import dataset_stem, safe_filename
 from webapp.figures import GRAPH_CONFIG, variance_table_tsv
 from webapp.figures.diagnostics import CAUTION
 from webapp.figures.theme import FONT_FAMILY, MUTED_TEXT_COLOUR, TEXT_COLOUR
 from webapp.state import parse_query
-from webapp.storage import SavedView
+from webapp.store.storage import SavedView
 
 __all__ = [
     "CAUTIONS",
@@ -137,7 +137,7 @@ def _utc(timestamp: float) -> str:
 def report_filename(services, saved_view: SavedView) -> str:
     """ASCII file name of a view's report: dataset stem, view title, ``-report.html``."""
     record = services.store.dataset(saved_view.dataset_token)
-    stem = _dataset_stem(record.filename) if record else "ordinate"
+    stem = dataset_stem(record.filename) if record else "ordinate"
     return safe_filename(f"{stem}-{saved_view.title}", "-report.html")
 
 
@@ -155,7 +155,7 @@ def build_report_html(services, saved_view: SavedView) -> str:
     no longer stored. A recipe that cannot be applied gives a report that says
     so, without figures.
     """
-    from webapp.ui.view_model import build_view, resolve
+    from webapp.ui.view_model import build_view, resolve, view_diagnostics
 
     state, notices = _state_of(saved_view)
     view = build_view(services, state, notices, wait=True)
@@ -430,7 +430,7 @@ def report_main(data_dir: Path, view_id: str, out: Path) -> int:
     Raises :class:`OrdinateError` (one sentence for the CLI to print) for a
     missing data directory, an unknown view or a missing output folder.
     """
-    from webapp.app import create_services
+    from webapp.store.services import create_services
     from webapp.config import AppConfig
 
     data_dir, out = Path(data_dir), Path(out)

@@ -2,17 +2,17 @@
 
 Split by job:
 
-* :mod:`webapp.access.keys`: the start-up policy, key files, the server secret
+* :mod:`webapp.web.access.keys`: the start-up policy, key files, the server secret
   and cookie signing;
-* :mod:`webapp.access.throttle`: the budget of wrong keys per client address;
-* :mod:`webapp.access.pages`: the sign-in and sign-out pages;
-* :mod:`webapp.access.routes`: the sign-in check before every request, its
+* :mod:`webapp.web.access.throttle`: the budget of wrong keys per client address;
+* :mod:`webapp.web.access.pages`: the sign-in and sign-out pages;
+* :mod:`webapp.web.access.routes`: the sign-in check before every request, its
   routes and the security headers (Content-Security-Policy included).
 
-Every public name is importable from ``webapp.access`` as before.
+Every public name is importable from ``webapp.web.access`` as before.
 """
 
-from webapp.access.keys import (
+from webapp.web.access.keys import (
     ACCESS_KEY_ENV,
     GENERATE_KEY_COMMAND,
     MAX_KEY_LENGTH,
@@ -31,8 +31,8 @@ from webapp.access.keys import (
     resolve_access_key,
     warning_text,
 )
-from webapp.access.pages import SIGN_IN_PATH, SIGN_OUT_PATH
-from webapp.access.routes import (
+from webapp.web.access.pages import SIGN_IN_PATH, SIGN_OUT_PATH
+from webapp.web.access.routes import (
     CONTENT_SECURITY_POLICY,
     COOKIE_MAX_AGE_SECONDS,
     COOKIE_NAME,
@@ -44,7 +44,7 @@ from webapp.access.routes import (
     register_security_headers,
     safe_next,
 )
-from webapp.access.throttle import FAILURE_BUDGET, SignInThrottle
+from webapp.web.access.throttle import FAILURE_BUDGET, SignInThrottle
 
 __all__ = [
     "ACCESS_KEY_ENV",
