@@ -156,7 +156,7 @@ def first_view_seconds(base: str) -> tuple[float, str | None]:
 
 def storage_problems(data_dir: Path) -> list[str]:
     """SQLite integrity of every store in the data directory, and every stored file against its hash."""
-    from webapp.storage import DataStore
+    from webapp.store.storage import DataStore
 
     problems = []
     for database in sorted(data_dir.rglob("*.db")):

@@ -27,6 +27,12 @@ log = logging.getLogger("ordinate.server")
 THREADS_PER_WORKER = 4
 # Long fits (large files, parallel analysis) must not be killed mid-way.
 WORKER_TIMEOUT_SECONDS = 600
+# An idle kept-alive connection is closed after this long. gunicorn's 2 s default closed
+# connections that clients were just reusing: under load (tests/load) a few requests per
+# thousand were reset. Longer than a reverse proxy's usual upstream idle time (nginx: 60 s),
+# so the proxy, not gunicorn, closes first; idle connections wait in gthread's poller and
+# hold no thread.
+KEEPALIVE_SECONDS = 75
 
 
 def serve(*, host: str, port: int, data_dir: Path, workers: int, max_upload_mb: float | None = None,
@@ -50,6 +56,7 @@ def serve(*, host: str, port: int, data_dir: Path, workers: int, max_upload_mb: 
                 "threads": THREADS_PER_WORKER,
                 "worker_class": "gthread",
                 "timeout": WORKER_TIMEOUT_SECONDS,
+                "keepalive": KEEPALIVE_SECONDS,
                 "accesslog": None,
                 "errorlog": "-",
                 "loglevel": "warning",
