@@ -48,6 +48,8 @@ from webapp.figures._points import (
     point_trace,
     resolve_groups,
 )
+from webapp.figures.arrow_labels import ARROW_COLOUR, NOMINAL_PLOT_PX, arrow_annotations, data_range
+from webapp.figures.label_placement import PlotFrame
 from webapp.figures.palette import ALL_SAMPLES_GROUP, NEUTRAL_COLOUR, GroupStyle
 from webapp.figures.text import count_text, escape_text, level_percent, percent, template_literal
 from webapp.figures.theme import TEXT_COLOUR, Style, axis_style, new_figure, style_for
@@ -82,7 +84,6 @@ DENSITY_BINS = 80
 ARROW_FILL = 0.8
 
 SCALINGS = ("correlation", "distance")
-ARROW_COLOUR = "#4A4F55"
 _SIGMA_DASHES = ("solid", "dash", "dot", "dashdot")
 _HOTELLING_DASH = "longdash"
 _DENSITY_COLOURSCALE = [[0.0, "#EEF0F2"], [1.0, "#2F3338"]]
@@ -193,49 +194,6 @@ def loading_arrows(
     dy.setflags(write=False)
     return LoadingArrows(variables=names, dx=dx, dy=dy, scaling=scaling, factor=factor,
                          left_out=total - len(names))
-
-
-def arrow_annotations(
-    variables: Sequence[str],
-    dx: np.ndarray,
-    dy: np.ndarray,
-    style: Style,
-    colour: str = ARROW_COLOUR,
-    *,
-    labels_inside: bool = False,
-) -> list[dict]:
-    """Two annotations per variable: an arrow from the origin to (dx, dy) and the name at the tip.
-
-    Names sit just beyond the tip, or with ``labels_inside`` just inside it
-    beside the shaft (for plots whose arrows reach the edge of the axes).
-    """
-    annotations = []
-    for name, tip_x, tip_y in zip(variables, np.asarray(dx).tolist(), np.asarray(dy).tolist()):
-        annotations.append(dict(
-            x=tip_x, y=tip_y, ax=0.0, ay=0.0,
-            xref="x", yref="y", axref="x", ayref="y",
-            text="", showarrow=True,
-            arrowhead=2, arrowsize=1.0, arrowwidth=style.arrow_width, arrowcolor=colour,
-            standoff=0, startstandoff=0,
-        ))
-        if not labels_inside:
-            placement = dict(
-                xanchor="left" if tip_x >= 0 else "right",
-                yanchor="bottom" if tip_y >= 0 else "top",
-                xshift=3 if tip_x >= 0 else -3,
-            )
-        elif abs(tip_x) >= abs(tip_y):  # mostly horizontal: above the shaft, towards the origin
-            placement = dict(xanchor="right" if tip_x >= 0 else "left", yanchor="bottom", yshift=2)
-        else:  # mostly vertical: right of the shaft, towards the origin
-            placement = dict(xanchor="left", yanchor="top" if tip_y >= 0 else "bottom", xshift=4)
-        annotations.append(dict(
-            x=tip_x, y=tip_y, xref="x", yref="y",
-            text=escape_text(name), showarrow=False,
-            font=dict(size=style.label_size, color=TEXT_COLOUR),
-            bgcolor="rgba(255,255,255,0.7)",
-            **placement,
-        ))
-    return annotations
 
 
 # --------------------------------------------------------------------------
@@ -473,9 +431,21 @@ def scores_figure(
     traces.extend(picked_ring(xs, ys, label_array, highlighted, style, batch))
     fig.add_traces(traces)
 
-    if arrows is not None:
-        fig.update_layout(annotations=list(fig.layout.annotations) + arrow_annotations(
-            arrows.variables, arrows.dx, arrows.dy, style))
+    # Axes fitted to what is drawn (points, ellipses, arrows, new batch), so the arrow names can
+    # be placed inside them; an equal aspect ratio then widens one of the two ranges.
+    x_range = data_range([xs, *(e.x for e in ellipses), *([arrows.dx] if arrows else []),
+                          *([batch.x] if batch is not None else [])])
+    y_range = data_range([ys, *(e.y for e in ellipses), *([arrows.dy] if arrows else []),
+                          *([batch.y] if batch is not None else [])])
+    if x_range is not None and y_range is not None:
+        fig.update_layout(xaxis_range=list(x_range), yaxis_range=list(y_range))
+        if arrows is not None:
+            width, height = NOMINAL_PLOT_PX[("scores", presentation)]
+            annotations, leaders = arrow_annotations(
+                arrows.variables, arrows.dx, arrows.dy, style,
+                PlotFrame(x_range=x_range, y_range=y_range, width_px=width, height_px=height))
+            fig.update_layout(annotations=list(fig.layout.annotations) + annotations,
+                              shapes=list(fig.layout.shapes) + leaders)
     return fig
 
 
