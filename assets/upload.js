@@ -228,10 +228,13 @@
         }
     }
 
-    function fail(message) {
-        showStatus(message, true);
+    // The reason is shown once, in the page's message list (room for a long sentence); the
+    // header's status line only names the file. Without the page, the status line says it all.
+    function fail(message, fileName) {
         hideProgress();
-        publish({ error: message });
+        var shown = publish({ error: message });
+        var what = fileName ? "“" + fileName + "” was not loaded" : "The file was not loaded";
+        showStatus(shown ? what + ": see the message below." : message, true);
     }
 
     // --- the upload ---------------------------------------------------------
@@ -245,12 +248,12 @@
             return;
         }
         if (file.size === 0) {
-            fail("“" + file.name + "” is empty (0 bytes). Choose a CSV file that contains a header row and data.");
+            fail("“" + file.name + "” is empty (0 bytes). Choose a CSV file that contains a header row and data.", file.name);
             return;
         }
         var limit = limitBytes(zone);
         if (limit && file.size > limit.bytes) {
-            fail(tooLargeMessage(file.size, limit)); // checked here so nothing is sent
+            fail(tooLargeMessage(file.size, limit), file.name); // checked here so nothing is sent
             return;
         }
         send(file, zone, purpose || "analysis");
@@ -302,17 +305,17 @@
                 }
                 return;
             }
-            fail(body && typeof body.error === "string" ? body.error : messageForStatus(xhr.status));
+            fail(body && typeof body.error === "string" ? body.error : messageForStatus(xhr.status), file.name);
         };
         xhr.onerror = function () {
             setBusy(zone, false);
             fail("The connection to the server was lost during the upload, so the file was not stored. " +
                 "Check the network and try again. If this happens only with large files, " +
-                "a proxy between you and the server may limit upload sizes: tell the administrator.");
+                "a proxy between you and the server may limit upload sizes: tell the administrator.", file.name);
         };
         xhr.onabort = function () {
             setBusy(zone, false);
-            fail("The upload was stopped before it finished, so the file was not stored.");
+            fail("The upload was stopped before it finished, so the file was not stored.", file.name);
         };
         xhr.ontimeout = xhr.onerror;
 

@@ -2,7 +2,8 @@
 
 The names are placed by :func:`webapp.figures.label_placement.place_labels`
 in a nominal plot area (:data:`NOMINAL_PLOT_PX`), a size the drawn plot
-reaches at least on a 1280 px wide screen; a name moved away from its tip is
+reaches at least on a 1280 px wide screen (a larger plot only adds room
+between the names); a name moved away from its tip is
 joined to it by a thin leader line (a layout shape).
 """
 
@@ -14,7 +15,7 @@ import numpy as np
 
 from webapp.figures.label_placement import PlotFrame, place_labels
 from webapp.figures.text import escape_text
-from webapp.figures.theme import AXIS_LINE_COLOUR, TEXT_COLOUR, Style
+from webapp.figures.theme import MUTED_TEXT_COLOUR, TEXT_COLOUR, Style
 
 __all__ = ["ARROW_COLOUR", "NOMINAL_PLOT_PX", "arrow_annotations", "data_range"]
 
@@ -22,11 +23,11 @@ ARROW_COLOUR = "#4A4F55"
 
 #: Smallest expected plot area (width, height in pixels) per figure kind and
 #: presentation mode. Measured on the dashboard at 1280 x 800: the scores plot
-#: area is about 800 x 480 px, the correlation circle about 300 x 300 px.
+#: area is about 800 x 480 px, the correlation circle about 270 x 270 px.
 NOMINAL_PLOT_PX = {
     ("scores", False): (640.0, 430.0),
     ("scores", True): (900.0, 380.0),
-    ("circle", False): (270.0, 270.0),
+    ("circle", False): (250.0, 250.0),
     ("circle", True): (340.0, 340.0),
 }
 
@@ -81,6 +82,6 @@ def arrow_annotations(
             leaders.append(dict(
                 type="line", xref="x", yref="y", layer="above",
                 x0=label.anchor_x, y0=label.anchor_y, x1=end_x, y1=end_y,
-                line=dict(color=AXIS_LINE_COLOUR, width=1.0),
+                line=dict(color=MUTED_TEXT_COLOUR, width=0.8),
             ))
     return arrows + labels, leaders

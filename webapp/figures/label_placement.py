@@ -45,7 +45,7 @@ __all__ = ["PlotFrame", "PlacedLabel", "text_box", "place_labels", "LEADER_GAP"]
 LEADER_GAP = 10.0
 _DIRECTIONS = 16
 _RINGS = 40
-_SHAFT_PENALTY = 60.0  # pixels of extra distance a label may move to avoid covering an arrow
+_SHAFT_PENALTY = 14.0  # pixels of extra distance a label may move to avoid covering one arrow
 _TURN_PENALTY = 6.0  # pixels per radian of turning away from the arrow's direction
 
 # Character widths as fractions of the font size (generous for DejaVu/Liberation/Arial-like faces).

@@ -88,6 +88,9 @@ def loadings_bar_figure(
         hovertemplate="<b>%{customdata}</b><br>loading %{x:.4f}<extra></extra>",
         name=f"PC{int(component)}",
     ))
+    # Long names push the plot to the right: the note ends at the plot's right edge instead of
+    # starting at its left edge, so it runs into the names' margin rather than off the figure.
+    fig.layout.annotations[0].update(x=1.0, xanchor="right", align="right")
     if len(names) > 20:
         fig.update_layout(height=int(min(160 + 20 * len(names), 4000)))
     return fig
@@ -127,11 +130,10 @@ def correlation_circle_figure(
     circle_x, circle_y = np.cos(phi), np.sin(phi)
     circle_x[-1], circle_y[-1] = circle_x[0], circle_y[0]
     named = np.flatnonzero(placed)
-    notes = ["Dotted circle: arrows ending inside it have under 25 % of their variance "
-             "described by these two components."]
+    notes = ["Dotted circle: inside it, under 25 % of a variable's variance is shown."]
     if max_arrows is not None and named.size > max_arrows:
         named = np.sort(np.argsort(-radius_of, kind="stable")[:max_arrows])
-        notes.append(f"Arrows for the {max_arrows} of {len(names)} variables farthest from the centre; "
+        notes.append(f"Showing the {max_arrows} strongest of {len(names)} variables (farthest from the centre); "
                      f"the others are dots (hover to read them).")
     if not placed.all():
         rx, ry = np.where(placed, rx, np.nan), np.where(placed, ry, np.nan)

@@ -129,7 +129,7 @@ class LoadingArrows:
             )
         if self.left_out:
             shown = len(self.variables)
-            text += f" The {shown} longest of {shown + self.left_out} arrows are drawn."
+            text += f" Showing the {shown} strongest of {shown + self.left_out} variables (longest arrows)."
         return text
 
 
