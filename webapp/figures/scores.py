@@ -403,9 +403,13 @@ def scores_figure(
         xaxis=axis_style(x_title),
         yaxis={**axis_style(y_title), "scaleanchor": "x", "scaleratio": 1},
         # Legend below the plot: with an equal aspect ratio, a side legend
-        # would take width the scores need.
+        # would take width the scores need. Placed at the bottom of the figure
+        # (container coordinates), Plotly reserves its height below the axis
+        # title, so the legend never covers tick labels or the title, whatever
+        # the plot's height (a paper offset such as y=-0.14 shrinks with it).
         legend=dict(traceorder="grouped", groupclick="toggleitem", orientation="h",
-                    x=0.0, xanchor="left", y=-0.14, yanchor="top", bgcolor="rgba(255,255,255,0)"),
+                    x=0.0, xanchor="left", y=0.0, yref="container", yanchor="bottom",
+                    bgcolor="rgba(255,255,255,0)"),
         dragmode="lasso" if not use_density else "zoom",
     )
 
