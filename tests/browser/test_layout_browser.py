@@ -73,3 +73,19 @@ def test_demo_view_at_1280_by_800_has_nothing_cut_off_or_overlapping(dash_duo, a
     assert m["scoresNames"] == 13 and m["scoresClashes"] == []
     assert m["circleNames"] == 13 and m["circleClashes"] == []
     assert m["circleOutside"] == [] and m["circleTitlesClipped"] == []
+
+
+def test_a_flagged_row_picks_its_sample_and_the_scores_plot_names_it(dash_duo, app):
+    dash_duo.driver.set_window_size(1280, 800)
+    dash_duo.start_server(app)
+    dash_duo.wait_for_element("#scores-graph .js-plotly-plot", timeout=TIMEOUT)
+    _wait_for_parallel_analysis(dash_duo.driver)
+    button = dash_duo.wait_for_element("#flagged-list .pick-row", timeout=TIMEOUT)
+    label = button.text
+    dash_duo.driver.execute_script("arguments[0].scrollIntoView({block: 'center'});", button)
+    button.click()
+    _wait_for(lambda: "pick=" + label in dash_duo.driver.current_url)
+    # Its contributions appear, and the scores plot writes its name beside its point.
+    _wait_for(lambda: label in dash_duo.find_element("#contributions").text)
+    _wait_for(lambda: any(label in e.text for e in dash_duo.driver.find_elements(
+        "css selector", "#scores-graph .annotation-text-g")))

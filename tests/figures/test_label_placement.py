@@ -172,3 +172,17 @@ def test_scores_axes_cover_points_ellipses_and_arrows():
     assert y0 < min(y.min(), arrows.dy.min()) and y1 > max(y.max(), arrows.dy.max())
     names = [a.text for a in fig.layout.annotations if a.name == "arrow-label"]
     assert names == DEMO_NAMES
+
+
+def test_a_picked_sample_is_named_at_its_point():
+    from webapp.figures import scores_figure
+
+    x, y = np.array([0.0, 1.5, -2.0]), np.array([0.0, 0.5, 1.0])
+    fig = scores_figure(x=x, y=y, labels=np.array(["a", "b<c", "d"]), groups=None, x_title="PC1", y_title="PC2",
+                        highlighted="b<c", highlight_note="see below")
+    (note,) = [a for a in fig.layout.annotations if a.name == "picked-label"]
+    assert (note.x, note.y) == (1.5, 0.5) and note.showarrow
+    assert note.text == "<b>b&lt;c · see below</b>"  # user text escaped
+    none = scores_figure(x=x, y=y, labels=np.array(["a", "b", "d"]), groups=None, x_title="PC1", y_title="PC2",
+                         highlighted="zz")
+    assert not [a for a in none.layout.annotations if a.name == "picked-label"]

@@ -336,6 +336,7 @@ def scores_figure(
     arrows: LoadingArrows | None = None,
     show_labels: bool = False,
     highlighted: str | None = None,
+    highlight_note: str | None = None,
     excluded_note: str | None = None,
     title: str | None = None,
     density: bool | None = None,
@@ -359,7 +360,9 @@ def scores_figure(
     Hotelling ellipse is dark grey and long-dashed.
 
     All strings are plain text; they are escaped before Plotly sees them.
-    ``highlighted`` draws a ring around the sample(s) with that label.
+    ``highlighted`` draws a ring around the sample(s) with that label and
+    writes the label beside it, followed by ``highlight_note`` (such as where
+    its contributions are shown).
     ``batch``: samples of a new batch scored against the model, drawn as dark
     stars on top (also in the density view).
     ``show_labels`` writes labels next to the points when there are at most
@@ -432,8 +435,17 @@ def scores_figure(
     traces.extend(_ellipse_traces(ellipses, ellipse_groups, styles, style))
     if batch is not None:
         traces.append(batch_trace(batch, style.marker_size, axis_hover, style.label_size))
-    traces.extend(picked_ring(xs, ys, label_array, highlighted, style, batch))
+    rings = picked_ring(xs, ys, label_array, highlighted, style, batch)
+    traces.extend(rings)
     fig.add_traces(traces)
+    if rings:  # the picked sample named at its point: the click's feedback where the eye is
+        text = escape_text(str(highlighted)) + (f" · {escape_text(highlight_note)}" if highlight_note else "")
+        fig.add_annotation(
+            name="picked-label", x=float(rings[0].x[0]), y=float(rings[0].y[0]), xref="x", yref="y",
+            text=f"<b>{text}</b>", showarrow=True, arrowhead=0, arrowwidth=1.2, arrowcolor=TEXT_COLOUR,
+            ax=28, ay=-30, standoff=style.marker_size, font=dict(size=style.label_size + 1, color=TEXT_COLOUR),
+            bgcolor="rgba(255,255,255,0.92)", bordercolor=TEXT_COLOUR, borderwidth=1, borderpad=3,
+        )
 
     # Axes fitted to what is drawn (points, ellipses, arrows, new batch), so the arrow names can
     # be placed inside them; an equal aspect ratio then widens one of the two ranges.

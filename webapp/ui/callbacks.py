@@ -25,6 +25,7 @@ from webapp.figures.message import message_figure
 from webapp.state import NO_COLOUR, ViewState, parse_query, to_query
 from webapp.ui import layout as L
 from webapp.ui import view_model as vm
+from webapp.ui.picking import register_picking
 from webapp.ui.components import (
     batch_panel,
     dataset_summary,
@@ -53,6 +54,7 @@ def register_callbacks(app, services) -> None:
     _register_write_url(app)
     _register_actions(app, services)
     _register_clientside(app)
+    register_picking(app)
 
 
 # --- URL -> everything shown ---------------------------------------------------------
@@ -454,16 +456,6 @@ def _register_actions(app, services) -> None:
             raise PreventUpdate
         variable = ctx.triggered_id["index"]
         return _search_if_changed(current, current.replace(transforms=tuple(p for p in current.transforms if p[0] != variable)))
-
-    @app.callback(url_out, Input(L.SCORES_GRAPH, "clickData"), Input(L.DIAGNOSTICS_GRAPH, "clickData"),
-                  State(L.URL, "search"), prevent_initial_call=True)
-    def pick_sample(scores_click, diagnostics_click, search):
-        current, _ = parse_query(search)
-        event = scores_click if ctx.triggered_id == L.SCORES_GRAPH else diagnostics_click
-        labels = vm.labels_from_event(event)
-        if not labels:
-            raise PreventUpdate
-        return _search_if_changed(current, current.replace(picked=labels[0]))
 
     @app.callback(url_out, Output(L.NOTICES, "children", allow_duplicate=True),
                   Output(L.MANAGE_LINKS, "data"),
