@@ -1,5 +1,5 @@
 """The dashboard at 1280 x 800 (a common projector and laptop size): nothing wider than the
-window, the scores legend clear of the axes' tick labels and titles, arrow names clear of each
+window, the legends of the scores and variance plots clear of their tick labels and axis titles, arrow names clear of each
 other, the correlation circle's names inside its plot.
 
 Boxes are read in the page (``getBoundingClientRect`` of the drawn SVG text), so the checks see
@@ -29,9 +29,9 @@ const clashes = list => { const c = [];
     if (hit(list[i].box, list[j].box)) c.push(list[i].text + ' / ' + list[j].text);
   return c; };
 const width = document.documentElement.clientWidth;
-const scores = document.querySelector('#scores-graph');
-const legend = scores.querySelector('.legend');
-const axisText = [...scores.querySelectorAll('.g-xtitle text, .g-ytitle text, .xtick text, .ytick text')];
+const legendOnAxes = sel => { const g = document.querySelector(sel); const legend = g.querySelector('.legend');
+  return [...g.querySelectorAll('.g-xtitle text, .g-ytitle text, .g-y2title text, .xtick text, .ytick text, .y2tick text')]
+    .filter(t => hit(box(legend), box(t))).map(t => sel + ': ' + t.textContent); };
 const circleNames = names('#circle-graph');
 const circlePlot = box(document.querySelector('#circle-graph .nsewdrag'));
 const circleGraph = box(document.querySelector('#circle-graph'));
@@ -40,7 +40,7 @@ return JSON.stringify({
   wider: [...document.querySelectorAll('body *')].filter(e => { const r = e.getBoundingClientRect();
       return r.width > 0 && r.height > 0 && r.right > width + 0.5; })
     .map(e => e.tagName + '.' + (e.getAttribute('class') || '')),
-  legendOnAxes: axisText.filter(t => hit(box(legend), box(t))).map(t => t.textContent),
+  legendOnAxes: [...legendOnAxes('#scores-graph'), ...legendOnAxes('#variance-graph')],
   scoresNames: names('#scores-graph').length,
   scoresClashes: clashes(names('#scores-graph')),
   circleNames: circleNames.length,

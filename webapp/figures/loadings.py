@@ -130,7 +130,7 @@ def correlation_circle_figure(
     circle_x, circle_y = np.cos(phi), np.sin(phi)
     circle_x[-1], circle_y[-1] = circle_x[0], circle_y[0]
     named = np.flatnonzero(placed)
-    notes = ["Dotted circle: inside it, under 25 % of a variable's variance is shown."]
+    notes = ["Dotted circle: under 25 % of a variable's variance shown."]
     if max_arrows is not None and named.size > max_arrows:
         named = np.sort(np.argsort(-radius_of, kind="stable")[:max_arrows])
         notes.append(f"Showing the {max_arrows} strongest of {len(names)} variables (farthest from the centre); "

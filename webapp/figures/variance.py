@@ -181,7 +181,9 @@ def variance_figure(
         yaxis2={**axis_style("Cumulative (%)", zero_line=False), "overlaying": "y", "side": "right",
                 "range": [0, 105], "showgrid": False,
                 "tickmode": "linear", "tick0": 0, "dtick": 20},
-        legend=dict(orientation="h", x=0.0, xanchor="left", y=-0.16, yanchor="top"),
+        # At the figure's bottom (container coordinates): Plotly reserves its height below the
+        # axis title, so the legend cannot cover the title however short the plot is.
+        legend=dict(orientation="h", x=0.0, xanchor="left", y=0.0, yref="container", yanchor="bottom"),
         bargap=0.25,
         shapes=shapes,
     )

@@ -285,7 +285,7 @@ def _scores_card() -> html.Section:
                 ]),
                 dcc.RadioItems(id=BIPLOT_SCALING, inline=True, options=[
                     {"label": _WORDS[s], "value": s} for s in BIPLOT_SCALINGS]),
-                _inline("strongest", dcc.Dropdown(
+                _inline("arrows shown", dcc.Dropdown(
                     id=ARROW_LIMIT, clearable=False, searchable=False, className="arrow-select",
                     options=[{"label": f"auto ({PAGE_ARROWS})", "value": "auto"}]
                     + [{"label": str(n), "value": n} for n in ARROW_LIMIT_CHOICES])),
