@@ -181,8 +181,36 @@ def test_a_picked_sample_is_named_at_its_point():
     fig = scores_figure(x=x, y=y, labels=np.array(["a", "b<c", "d"]), groups=None, x_title="PC1", y_title="PC2",
                         highlighted="b<c", highlight_note="see below")
     (note,) = [a for a in fig.layout.annotations if a.name == "picked-label"]
-    assert (note.x, note.y) == (1.5, 0.5) and note.showarrow
+    # Named near its point (the nearest edge of the name's box within a leader's reach of it).
+    assert abs(note.x - 1.5) < 2.0 and abs(note.y - 0.5) < 1.0
     assert note.text == "<b>b&lt;c · see below</b>"  # user text escaped
     none = scores_figure(x=x, y=y, labels=np.array(["a", "b", "d"]), groups=None, x_title="PC1", y_title="PC2",
                          highlighted="zz")
     assert not [a for a in none.layout.annotations if a.name == "picked-label"]
+
+
+def test_the_picked_name_and_the_arrow_names_keep_clear_of_each_other():
+    from webapp.figures import loading_arrows, scores_figure
+    from webapp.figures.arrow_labels import NOMINAL_PLOT_PX
+    from webapp.figures.theme import NORMAL
+
+    rng = np.random.default_rng(5)
+    x, y = rng.normal(size=60) * 3, rng.normal(size=60)
+    angles = np.deg2rad(np.linspace(160, 168, 6))
+    arrows = loading_arrows(np.column_stack([np.cos(angles), np.sin(angles)]), DEMO_NAMES, np.array([2.0, 1.0]),
+                            "correlation", float(np.abs(x).max()))
+    labels = np.array([f"s{i}" for i in range(60)])
+    picked = labels[int(np.argmin(np.hypot(x - arrows.dx[0], y - arrows.dy[0])))]  # right by an arrow tip
+    fig = scores_figure(x=x, y=y, labels=labels, groups=None, x_title="PC1", y_title="PC2", arrows=arrows,
+                        highlighted=picked, highlight_note="see below")
+    frame = PlotFrame(tuple(fig.layout.xaxis.range), tuple(fig.layout.yaxis.range), *NOMINAL_PLOT_PX[("scores", False)])
+    sx, sy = frame.pixels_per_unit
+    boxes = []
+    for a in fig.layout.annotations:
+        if a.name in ("arrow-label", "picked-label"):
+            size = NORMAL.label_size * (1.15 if a.name == "picked-label" else 1.0)
+            w, h = text_box(a.text.replace("<b>", "").replace("</b>", "").replace("&lt;", "<"), size)
+            boxes.append((a.x - w / sx / 2, a.y - h / sy / 2, a.x + w / sx / 2, a.y + h / sy / 2))
+    assert len(boxes) == len(DEMO_NAMES) + 1
+    for a, b in itertools.combinations(boxes, 2):
+        assert not _overlap(a, b)

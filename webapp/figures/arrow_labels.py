@@ -13,11 +13,11 @@ from typing import Sequence
 
 import numpy as np
 
-from webapp.figures.label_placement import PlotFrame, place_labels
+from webapp.figures.label_placement import PlacedLabel, PlotFrame, place_labels
 from webapp.figures.text import escape_text
 from webapp.figures.theme import MUTED_TEXT_COLOUR, TEXT_COLOUR, Style
 
-__all__ = ["ARROW_COLOUR", "NOMINAL_PLOT_PX", "arrow_annotations", "data_range"]
+__all__ = ["ARROW_COLOUR", "NOMINAL_PLOT_PX", "arrow_annotations", "data_range", "leader_line"]
 
 ARROW_COLOUR = "#4A4F55"
 
@@ -26,7 +26,7 @@ ARROW_COLOUR = "#4A4F55"
 #: area is about 800 x 480 px, the correlation circle about 270 x 270 px.
 NOMINAL_PLOT_PX = {
     ("scores", False): (640.0, 430.0),
-    ("scores", True): (900.0, 380.0),
+    ("scores", True): (900.0, 280.0),  # slides: measured 1390 x 285 px at 1600 x 900
     ("circle", False): (250.0, 250.0),
     ("circle", True): (340.0, 340.0),
 }
@@ -52,11 +52,14 @@ def arrow_annotations(
     style: Style,
     frame: PlotFrame,
     colour: str = ARROW_COLOUR,
+    *,
+    obstacles: Sequence[tuple[float, float, float, float]] = (),
 ) -> tuple[list[dict], list[dict]]:
     """Annotations (an arrow from the origin to (dx, dy), then the name) and leader-line shapes.
 
     Names are centred on the places found by ``place_labels`` in ``frame``;
     the arrows come first, then the names, in the order of ``variables``.
+    ``obstacles``: boxes in the frame's pixels that names keep clear of.
     """
     tips_x, tips_y = np.asarray(dx, dtype=np.float64), np.asarray(dy, dtype=np.float64)
     names = [str(v) for v in variables]
@@ -67,8 +70,9 @@ def arrow_annotations(
         arrowhead=2, arrowsize=1.0, arrowwidth=style.arrow_width, arrowcolor=colour,
         standoff=0, startstandoff=0,
     ) for x, y in zip(tips_x.tolist(), tips_y.tolist())]
-    placed = place_labels(tips_x, tips_y, names, style.label_size, frame)
-    labels, leaders = [], []
+    placed = place_labels(tips_x, tips_y, names, style.label_size, frame, obstacles=obstacles)
+    labels = []
+    leaders = [leader_line(label) for label in placed if label.leader]
     for label in placed:
         labels.append(dict(
             name="arrow-label", x=label.x, y=label.y, xref="x", yref="y",
@@ -77,11 +81,12 @@ def arrow_annotations(
             font=dict(size=style.label_size, color=TEXT_COLOUR),
             bgcolor="rgba(255,255,255,0.78)", borderpad=1,
         ))
-        if label.leader:
-            end_x, end_y = label.leader_end()
-            leaders.append(dict(
-                type="line", xref="x", yref="y", layer="above",
-                x0=label.anchor_x, y0=label.anchor_y, x1=end_x, y1=end_y,
-                line=dict(color=MUTED_TEXT_COLOUR, width=0.8),
-            ))
     return arrows + labels, leaders
+
+
+def leader_line(label: PlacedLabel) -> dict:
+    """A thin line (layout shape) from a label's anchor to the nearest point of its box."""
+    end_x, end_y = label.leader_end()
+    return dict(type="line", xref="x", yref="y", layer="above",
+                x0=label.anchor_x, y0=label.anchor_y, x1=end_x, y1=end_y,
+                line=dict(color=MUTED_TEXT_COLOUR, width=0.8))

@@ -94,6 +94,12 @@ class PlotFrame:
         if not (self.width_px > 0 and self.height_px > 0):
             raise OrdinateError("A plot must be wider and taller than 0 pixels.")
 
+    def pixel_box(self, box: tuple[float, float, float, float]) -> tuple[float, float, float, float]:
+        """A box (x0, y0, x1, y1) in data units as pixels from the frame's lower-left corner (for obstacles)."""
+        sx, sy = self.pixels_per_unit
+        return ((box[0] - self.x_range[0]) * sx, (box[1] - self.y_range[0]) * sy,
+                (box[2] - self.x_range[0]) * sx, (box[3] - self.y_range[0]) * sy)
+
     @property
     def pixels_per_unit(self) -> tuple[float, float]:
         """Pixels per data unit along x and along y."""

@@ -48,8 +48,8 @@ from webapp.figures._points import (
     point_trace,
     resolve_groups,
 )
-from webapp.figures.arrow_labels import ARROW_COLOUR, NOMINAL_PLOT_PX, arrow_annotations, data_range
-from webapp.figures.label_placement import PlotFrame
+from webapp.figures.arrow_labels import ARROW_COLOUR, NOMINAL_PLOT_PX, arrow_annotations, data_range, leader_line
+from webapp.figures.label_placement import PlotFrame, place_labels
 from webapp.figures.palette import ALL_SAMPLES_GROUP, NEUTRAL_COLOUR, GroupStyle
 from webapp.figures.text import count_text, escape_text, level_percent, percent, template_literal
 from webapp.figures.theme import TEXT_COLOUR, Style, axis_style, new_figure, style_for
@@ -438,14 +438,6 @@ def scores_figure(
     rings = picked_ring(xs, ys, label_array, highlighted, style, batch)
     traces.extend(rings)
     fig.add_traces(traces)
-    if rings:  # the picked sample named at its point: the click's feedback where the eye is
-        text = escape_text(str(highlighted)) + (f" · {escape_text(highlight_note)}" if highlight_note else "")
-        fig.add_annotation(
-            name="picked-label", x=float(rings[0].x[0]), y=float(rings[0].y[0]), xref="x", yref="y",
-            text=f"<b>{text}</b>", showarrow=True, arrowhead=0, arrowwidth=1.2, arrowcolor=TEXT_COLOUR,
-            ax=28, ay=-30, standoff=style.marker_size, font=dict(size=style.label_size + 1, color=TEXT_COLOUR),
-            bgcolor="rgba(255,255,255,0.92)", bordercolor=TEXT_COLOUR, borderwidth=1, borderpad=3,
-        )
 
     # Axes fitted to what is drawn (points, ellipses, arrows, new batch), so the arrow names can
     # be placed inside them; an equal aspect ratio then widens one of the two ranges.
@@ -455,13 +447,27 @@ def scores_figure(
                           *([batch.y] if batch is not None else [])])
     if x_range is not None and y_range is not None:
         fig.update_layout(xaxis_range=list(x_range), yaxis_range=list(y_range))
+        width, height = NOMINAL_PLOT_PX[("scores", presentation)]
+        frame = PlotFrame(x_range=x_range, y_range=y_range, width_px=width, height_px=height)
+        annotations, shapes, taken = [], [], []
+        if rings:  # the picked sample named at its point: the click's feedback where the eye is
+            text = str(highlighted) + (f" · {highlight_note}" if highlight_note else "")
+            x_at, y_at = float(rings[0].x[0]), float(rings[0].y[0])
+            # Bold and framed: estimated a little larger than plain text; kept just outside the ring.
+            (label,) = place_labels([x_at], [y_at], [text], style.label_size * 1.15, frame, origin=(x_at, y_at),
+                                    gap=style.marker_size * 1.5)
+            annotations.append(dict(
+                name="picked-label", x=label.x, y=label.y, xref="x", yref="y", xanchor="center", yanchor="middle",
+                text=f"<b>{escape_text(text)}</b>", showarrow=False, font=dict(size=style.label_size, color=TEXT_COLOUR),
+                bgcolor="rgba(255,255,255,0.92)", bordercolor=TEXT_COLOUR, borderwidth=1, borderpad=2))
+            shapes += [leader_line(label)] if label.leader else []
+            taken.append(frame.pixel_box(label.box))
         if arrows is not None:
-            width, height = NOMINAL_PLOT_PX[("scores", presentation)]
-            annotations, leaders = arrow_annotations(
-                arrows.variables, arrows.dx, arrows.dy, style,
-                PlotFrame(x_range=x_range, y_range=y_range, width_px=width, height_px=height))
-            fig.update_layout(annotations=list(fig.layout.annotations) + annotations,
-                              shapes=list(fig.layout.shapes) + leaders)
+            arrow_notes, leaders = arrow_annotations(arrows.variables, arrows.dx, arrows.dy, style, frame,
+                                                     obstacles=taken)
+            annotations, shapes = annotations + arrow_notes, shapes + leaders
+        fig.update_layout(annotations=list(fig.layout.annotations) + annotations,
+                          shapes=list(fig.layout.shapes) + shapes)
     return fig
 
 

@@ -91,7 +91,7 @@ def scores_panel(state: ViewState, fitted, table, groups, pc_x: int, pc_y: int, 
         x_title=axis_title(pc_x, float(ratios[pc_x - 1])), y_title=axis_title(pc_y, float(ratios[pc_y - 1])),
         hover_values=hover, ellipses=ellipses, ellipse_groups=owners, arrows=arrows,
         show_labels=state.labels, highlighted=state.picked, presentation=state.present,
-        highlight_note=None if state.present else "why it stands out: under Outlier diagnostics",
+        highlight_note=None if state.present else "see Outlier diagnostics",
         batch=None if batch is None else BatchPoints(
             x=batch.matrix @ pca.loadings[:, pc_x - 1], y=batch.matrix @ pca.loadings[:, pc_y - 1],
             labels=np.asarray(batch.labels, dtype=object), name=batch_legend(batch)),
