@@ -142,22 +142,29 @@ def _boundary_distance(ux: np.ndarray, uy: np.ndarray, half_w: float, half_h: fl
     return np.minimum(along_x, along_y)
 
 
-def _covers_segment(cx, cy, half_w, half_h, x0, y0, x1, y1) -> np.ndarray:
-    """For boxes with centres (cx, cy), whether each covers the segment (x0, y0)-(x1, y1) (Liang–Barsky)."""
-    dx, dy = x1 - x0, y1 - y0
-    t_lo, t_hi = np.zeros_like(cx), np.ones_like(cx)
-    inside = np.ones(cx.shape, dtype=bool)
-    for p, q in ((-dx, x0 - (cx - half_w)), (dx, (cx + half_w) - x0),
-                 (-dy, y0 - (cy - half_h)), (dy, (cy + half_h) - y0)):
-        if abs(p) < 1e-12:
-            inside &= q >= 0
-            continue
-        t = q / p
-        if p < 0:
-            t_lo = np.maximum(t_lo, t)
-        else:
-            t_hi = np.minimum(t_hi, t)
-    return inside & (t_lo <= t_hi)
+def _segments_covered(cx, cy, half_w, half_h, x0, y0, x1, y1) -> np.ndarray:
+    """How many of the segments (x0, y0)-(x1, y1) each box (centres cx, cy) covers (Liang–Barsky clipping).
+
+    ``cx``, ``cy``: candidate centres, shape (C,); segment ends: shape (S,). Returns counts, shape (C,).
+    """
+    if np.size(x0) == 0:
+        return np.zeros(cx.shape, dtype=np.int64)
+    cx, cy = cx[None, :], cy[None, :]
+    x0, y0, x1, y1 = (np.asarray(v, dtype=np.float64)[:, None] for v in (x0, y0, x1, y1))
+    t_lo = np.zeros((x0.shape[0], cx.shape[1]))
+    t_hi = np.ones_like(t_lo)
+    inside = np.ones(t_lo.shape, dtype=bool)
+    for p, q in ((-(x1 - x0), x0 - (cx - half_w)), (x1 - x0, (cx + half_w) - x0),
+                 (-(y1 - y0), y0 - (cy - half_h)), (y1 - y0, (cy + half_h) - y0)):
+        p = np.broadcast_to(p, t_lo.shape)
+        q = np.broadcast_to(q, t_lo.shape)
+        parallel = np.abs(p) < 1e-12
+        inside &= ~parallel | (q >= 0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t = np.where(parallel, 0.0, q / np.where(parallel, 1.0, p))
+        t_lo = np.where(~parallel & (p < 0), np.maximum(t_lo, t), t_lo)
+        t_hi = np.where(~parallel & (p > 0), np.minimum(t_hi, t), t_hi)
+    return (inside & (t_lo <= t_hi)).sum(axis=0)
 
 
 def place_labels(
@@ -211,13 +218,22 @@ def place_labels(
         cy = (py[i] + r * uy[None, :]).ravel()
         cost = (rings[:, None] + _TURN_PENALTY * np.abs(turns)[None, :]).ravel()
         inside = (cx - hw >= x_lo) & (cx + hw <= x_hi) & (cy - hh >= y_lo) & (cy + hh <= y_hi)
-        clashes = np.zeros(cx.shape, dtype=np.int64)
-        for bx0, by0, bx1, by1 in placed:
-            clashes += ((cx - hw < bx1) & (cx + hw > bx0) & (cy - hh < by1) & (cy + hh > by0))
-        for j in range(len(names)):
-            if j != i:
-                cost += _SHAFT_PENALTY * _covers_segment(cx, cy, hw, hh, ox, oy, px[j], py[j])
+        if placed:
+            b = np.asarray(placed, dtype=np.float64)  # (P, 4)
+            clashes = ((cx[None, :] - hw < b[:, 2:3]) & (cx[None, :] + hw > b[:, 0:1])
+                       & (cy[None, :] - hh < b[:, 3:4]) & (cy[None, :] + hh > b[:, 1:2])).sum(axis=0)
+        else:
+            clashes = np.zeros(cx.shape, dtype=np.int64)
         free = inside & (clashes == 0)
+        # Shafts are weighed only where a name may go (the costly part with many arrows); with no
+        # free slot left (more names than room), the fewest overlaps decide and shafts are ignored.
+        # Only slots within three shafts' penalty of the nearest free slot can win by avoiding shafts.
+        pool = np.flatnonzero(free)
+        if pool.size:
+            pool = pool[cost[pool] <= cost[pool].min() + 3 * _SHAFT_PENALTY]
+        others = np.arange(len(names)) != i
+        cost[pool] += _SHAFT_PENALTY * _segments_covered(
+            cx[pool], cy[pool], hw, hh, np.full(others.sum(), ox), np.full(others.sum(), oy), px[others], py[others])
         if free.any():
             best = int(np.flatnonzero(free)[np.argmin(cost[free])])
         else:
