@@ -60,6 +60,7 @@
     var DEFAULT_URL = "/api/upload";
     var BYTES_PER_MB = 1024 * 1024;
     var NOTE_MS = 6000;
+    var POINTER_MS = 8000;
     var ACCEPT = ".csv,.tsv,.txt,text/csv,text/tab-separated-values";
     // The usual "visually hidden" pattern: invisible, yet present and usable.
     var HIDDEN_STYLE = "position:absolute;width:1px;height:1px;padding:0;margin:-1px;" +
@@ -234,7 +235,16 @@
         hideProgress();
         var shown = publish({ error: message });
         var what = fileName ? "“" + fileName + "” was not loaded" : "The file was not loaded";
-        showStatus(shown ? what + ": see the message below." : message, true);
+        var pointer = what + ": see the message below.";
+        showStatus(shown ? pointer : message, true);
+        if (shown) {
+            // The pointer hangs below the top bar over the page: it goes once read; the reason stays.
+            window.setTimeout(function () {
+                if (statusText === pointer) {
+                    showStatus("", false);
+                }
+            }, POINTER_MS);
+        }
     }
 
     // --- the upload ---------------------------------------------------------
