@@ -60,6 +60,7 @@
     var DEFAULT_URL = "/api/upload";
     var BYTES_PER_MB = 1024 * 1024;
     var NOTE_MS = 6000;
+    var POINTER_MS = 8000;
     var ACCEPT = ".csv,.tsv,.txt,text/csv,text/tab-separated-values";
     // The usual "visually hidden" pattern: invisible, yet present and usable.
     var HIDDEN_STYLE = "position:absolute;width:1px;height:1px;padding:0;margin:-1px;" +
@@ -228,10 +229,22 @@
         }
     }
 
-    function fail(message) {
-        showStatus(message, true);
+    // The reason is shown once, in the page's message list (room for a long sentence); the
+    // header's status line only names the file. Without the page, the status line says it all.
+    function fail(message, fileName) {
         hideProgress();
-        publish({ error: message });
+        var shown = publish({ error: message });
+        var what = fileName ? "“" + fileName + "” was not loaded" : "The file was not loaded";
+        var pointer = what + ": see the message below.";
+        showStatus(shown ? pointer : message, true);
+        if (shown) {
+            // The pointer hangs below the top bar over the page: it goes once read; the reason stays.
+            window.setTimeout(function () {
+                if (statusText === pointer) {
+                    showStatus("", false);
+                }
+            }, POINTER_MS);
+        }
     }
 
     // --- the upload ---------------------------------------------------------
@@ -245,12 +258,12 @@
             return;
         }
         if (file.size === 0) {
-            fail("“" + file.name + "” is empty (0 bytes). Choose a CSV file that contains a header row and data.");
+            fail("“" + file.name + "” is empty (0 bytes). Choose a CSV file that contains a header row and data.", file.name);
             return;
         }
         var limit = limitBytes(zone);
         if (limit && file.size > limit.bytes) {
-            fail(tooLargeMessage(file.size, limit)); // checked here so nothing is sent
+            fail(tooLargeMessage(file.size, limit), file.name); // checked here so nothing is sent
             return;
         }
         send(file, zone, purpose || "analysis");
@@ -302,17 +315,17 @@
                 }
                 return;
             }
-            fail(body && typeof body.error === "string" ? body.error : messageForStatus(xhr.status));
+            fail(body && typeof body.error === "string" ? body.error : messageForStatus(xhr.status), file.name);
         };
         xhr.onerror = function () {
             setBusy(zone, false);
             fail("The connection to the server was lost during the upload, so the file was not stored. " +
                 "Check the network and try again. If this happens only with large files, " +
-                "a proxy between you and the server may limit upload sizes: tell the administrator.");
+                "a proxy between you and the server may limit upload sizes: tell the administrator.", file.name);
         };
         xhr.onabort = function () {
             setBusy(zone, false);
-            fail("The upload was stopped before it finished, so the file was not stored.");
+            fail("The upload was stopped before it finished, so the file was not stored.", file.name);
         };
         xhr.ontimeout = xhr.onerror;
 

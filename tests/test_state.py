@@ -91,6 +91,7 @@ valid_states = st.builds(
     colour_by=st.none() | st.just(NO_COLOUR) | labels,
     arrows=st.booleans(),
     biplot_scaling=st.sampled_from(state_module.BIPLOT_SCALINGS),
+    arrow_limit=st.none() | st.integers(min_value=1, max_value=state_module.MAX_ARROWS),
     labels=st.booleans(),
     loading_pc=pcs,
     picked=st.none() | labels,
@@ -195,7 +196,7 @@ def test_default_query_spells_out_every_setting():
     assert to_query(ViewState()) == (
         "v=1&ds=&off=&ex=&exset=&tf=&missing=drop&centre=mean&scale=unit&id=auto&k=auto&conf=0.95"
         "&x=1&y=2&sigma=2&ellipse=group&t2ellipse=0&colour=auto&arrows=1&biplot=correlation"
-        "&labels=0&lpc=1&pick=&batch=&view=&present=0&slide=1&show=scores&follow="
+        "&narrows=auto&labels=0&lpc=1&pick=&batch=&view=&present=0&slide=1&show=scores&follow="
     )
 
 
@@ -444,6 +445,7 @@ ALTERNATIVE_VALUES = {
     "colour_by": NO_COLOUR,
     "arrows": False,
     "biplot_scaling": "distance",
+    "arrow_limit": 5,
     "labels": True,
     "loading_pc": 2,
     "picked": "B-009",
@@ -540,3 +542,32 @@ def test_documented_defaults_and_effects_match_the_code():
         assert default_cell == expected_default, parameter.name
         assert effect_cell == EFFECT_WORDS[parameter.effect], parameter.name
     assert documented["v"][3] == f"`{STATE_VERSION}`"
+
+
+# --------------------------------------------------------------------------------------
+# How many arrows a view draws
+# --------------------------------------------------------------------------------------
+
+
+def test_arrow_limit_defaults_to_twenty_on_the_page_and_ten_on_slides():
+    # The defaults are the specification (10 on slides, 20 elsewhere).
+    assert ViewState().arrows_shown == 20
+    assert ViewState(present=True).arrows_shown == 10
+    assert ViewState(arrow_limit=7, present=True).arrows_shown == 7
+    assert "narrows=auto" in to_query(ViewState())
+    assert parse_query("narrows=12") == (ViewState(arrow_limit=12), ())
+    assert parse_query("narrows=auto") == (ViewState(), ())
+
+
+@pytest.mark.parametrize("text", ["0", "201", "-3", "many", ""])
+def test_unusable_arrow_limit_is_ignored_with_a_notice(text):
+    state, notices = parse_query(f"narrows={text}")
+    assert state.arrow_limit is None
+    assert len(notices) == 1 and "narrows" in notices[0] and "'auto'" in notices[0]
+
+
+def test_arrow_limit_is_validated():
+    with pytest.raises(ViewStateError):
+        ViewState(arrow_limit=0)
+    with pytest.raises(ViewStateError):
+        ViewState(arrow_limit=True)

@@ -114,11 +114,12 @@ def test_controls_round_trip_through_the_url(services, iris_token):
     controls = dict(id_column="auto", colour="__none__", variables_in=view.controls.variables_in,
                     missing=state.missing, centring=state.centring, scaling=state.scaling, pc_x=1, pc_y=2,
                     sigma="1, 2.5", ellipse_by="group", overlays=["arrows", "hotelling"], biplot="correlation",
-                    components="auto", confidence=0.95, loading_pc=1)
+                    components="auto", confidence=0.95, loading_pc=1, arrow_limit="auto")
     all_variables = [o["value"] for o in view.controls.variable_options]
     assert state_from_controls(state, all_variables, **controls) == state
     changed = state_from_controls(state, all_variables, **{**controls, "sigma": "3", "scaling": "unit"})
     assert changed.sigma_levels == (3.0,) and changed.scaling == "unit"
+    assert state_from_controls(state, all_variables, **{**controls, "arrow_limit": 5}).arrow_limit == 5
     assert parse_query(to_query(changed))[0] == changed
 
 
@@ -176,8 +177,14 @@ def test_wide_data_with_more_variables_than_samples(services):
     view = vm.build_view(services, ViewState(dataset=token), wait=True)
     assert view.errors == () and view.provenance["Solver"] == "gram"
     assert len(view.variance_rows) == 20 and all(row["kaiser"] for row in view.variance_rows)
-    assert sum(1 for a in view.scores_figure.layout.annotations if a.showarrow) == vm.MAX_BIPLOT_ARROWS
-    assert sum(1 for a in view.circle_figure.layout.annotations if a.showarrow) == vm.MAX_CIRCLE_ARROWS
+    # The view's arrow limit (narrows=auto: 20 on the page) for the biplot and the circle alike.
+    assert sum(1 for a in view.scores_figure.layout.annotations if a.showarrow) == 20
+    assert sum(1 for a in view.circle_figure.layout.annotations if a.showarrow) == 20
+    five = vm.build_view(services, ViewState(dataset=token, arrow_limit=5), wait=True)
+    assert sum(1 for a in five.scores_figure.layout.annotations if a.showarrow) == 5
+    notes = " ".join(a.text.replace("<br>", " ") for a in five.scores_figure.layout.annotations)
+    assert "Showing the 5 strongest of 300 variables" in notes
+    assert sum(1 for a in five.circle_figure.layout.annotations if a.showarrow) == 5
     assert len(view.circle_figure.data[-1].x) == 300  # every variable is still a point
     # Sample and component counts: 40 centred samples have at most 39 components.
     assert view.controls.pc_options[-1]["value"] == 39

@@ -34,7 +34,15 @@ from webapp.figures._points import (
 from webapp.figures.palette import NEGATIVE_COLOUR, POSITIVE_COLOUR, GroupStyle
 from webapp.figures.scores import DENSITY_THRESHOLD, _density_trace, picked_ring
 from webapp.figures.text import count_text, escape_text, level_percent
-from webapp.figures.theme import MUTED_TEXT_COLOUR, TEXT_COLOUR, axis_style, base_layout, new_figure, style_for
+from webapp.figures.theme import (
+    HALF_NOTE_WIDTH,
+    MUTED_TEXT_COLOUR,
+    TEXT_COLOUR,
+    axis_style,
+    base_layout,
+    new_figure,
+    style_for,
+)
 
 __all__ = [
     "CAUTION",
@@ -191,6 +199,7 @@ def diagnostics_figure(
     fig = new_figure(
         style,
         notes=notes,
+        note_width=HALF_NOTE_WIDTH,
         xaxis={**axis_style("Hotelling's T²"), "type": x_type, "rangemode": "tozero"},
         yaxis={**axis_style("Q residual (SPE)"), "type": y_type, "rangemode": "tozero"},
         shapes=shapes,

@@ -3,8 +3,10 @@
 The correlation circle draws, for each variable, the arrow (r_x, r_y) of its
 correlations with the two components. Every arrow lies inside the unit
 circle; an arrow reaching the circle means the two components describe that
-variable completely, a short one that they describe it poorly. The dotted
-inner circle marks radius 0.5 (a quarter of the variable's variance).
+variable completely, a short one that they describe it poorly. The squared
+length r_x² + r_y² is the share of the (preprocessed) variable's variance that
+the two components describe, so the dotted inner circle of radius 0.5 marks a
+share of 25 %; a note on the figure says so.
 """
 
 from __future__ import annotations
@@ -17,9 +19,17 @@ import plotly.graph_objects as go
 from webapp.analysis.errors import OrdinateError
 from webapp.figures._points import as_float32
 from webapp.figures.palette import NEGATIVE_COLOUR, POSITIVE_COLOUR
-from webapp.figures.scores import ARROW_COLOUR, arrow_annotations
+from webapp.figures.arrow_labels import ARROW_COLOUR, NOMINAL_PLOT_PX, arrow_annotations
+from webapp.figures.label_placement import PlotFrame
 from webapp.figures.text import escape_text, percent
-from webapp.figures.theme import AXIS_LINE_COLOUR, MUTED_TEXT_COLOUR, axis_style, new_figure, style_for
+from webapp.figures.theme import (
+    AXIS_LINE_COLOUR,
+    HALF_NOTE_WIDTH,
+    MUTED_TEXT_COLOUR,
+    axis_style,
+    new_figure,
+    style_for,
+)
 
 __all__ = ["loadings_bar_figure", "correlation_circle_figure", "CIRCLE_RANGE"]
 
@@ -63,6 +73,7 @@ def loadings_bar_figure(
         style,
         title=f"Loadings on PC{int(component)} · {percent(explained_ratio)}",
         notes=["Sorted by size; blue: positive, vermillion: negative."],
+        note_width=HALF_NOTE_WIDTH,
         xaxis={**axis_style("Loading"), "zeroline": True},
         yaxis={**axis_style(zero_line=False), "tickmode": "array", "tickvals": rows.tolist(),
                "ticktext": shown, "autorange": "reversed", "showgrid": False},
@@ -77,6 +88,9 @@ def loadings_bar_figure(
         hovertemplate="<b>%{customdata}</b><br>loading %{x:.4f}<extra></extra>",
         name=f"PC{int(component)}",
     ))
+    # Long names push the plot to the right: the note ends at the plot's right edge instead of
+    # starting at its left edge, so it runs into the names' margin rather than off the figure.
+    fig.layout.annotations[0].update(x=1.0, xanchor="right", align="right")
     if len(names) > 20:
         fig.update_layout(height=int(min(160 + 20 * len(names), 4000)))
     return fig
@@ -116,10 +130,10 @@ def correlation_circle_figure(
     circle_x, circle_y = np.cos(phi), np.sin(phi)
     circle_x[-1], circle_y[-1] = circle_x[0], circle_y[0]
     named = np.flatnonzero(placed)
-    notes = []
+    notes = ["Dotted circle: under 25 % of a variable's variance shown."]
     if max_arrows is not None and named.size > max_arrows:
         named = np.sort(np.argsort(-radius_of, kind="stable")[:max_arrows])
-        notes.append(f"Arrows for the {max_arrows} of {len(names)} variables farthest from the centre; "
+        notes.append(f"Showing the {max_arrows} strongest of {len(names)} variables (farthest from the centre); "
                      f"the others are dots (hover to read them).")
     if not placed.all():
         rx, ry = np.where(placed, rx, np.nan), np.where(placed, ry, np.nan)
@@ -127,6 +141,7 @@ def correlation_circle_figure(
     fig = new_figure(
         style,
         notes=notes,
+        note_width=HALF_NOTE_WIDTH,
         xaxis={**axis_style(x_title), "range": list(CIRCLE_RANGE), "constrain": "domain"},
         yaxis={**axis_style(y_title), "range": list(CIRCLE_RANGE), "scaleanchor": "x", "scaleratio": 1,
                "constrain": "domain"},
@@ -141,12 +156,16 @@ def correlation_circle_figure(
     # Invisible points at the tips carry the hover text (annotations have none).
     fig.add_trace(go.Scatter(
         x=rx, y=ry, mode="markers",
-        marker=dict(size=style.marker_size * 0.6, color=ARROW_COLOUR, opacity=0.45 if notes else 0.0),
+        marker=dict(size=style.marker_size * 0.6, color=ARROW_COLOUR, opacity=0.45 if len(named) < len(names) else 0.0),
         customdata=np.array([escape_text(v) for v in names], dtype=object), name="variables",
         hovertemplate="<b>%{customdata}</b><br>r with x: %{x:.3f}<br>r with y: %{y:.3f}<extra></extra>",
     ))
-    fig.update_layout(annotations=list(fig.layout.annotations) + arrow_annotations(
-        [names[i] for i in named], rx[named], ry[named], style, labels_inside=True))
+    width, height = NOMINAL_PLOT_PX[("circle", presentation)]
+    annotations, leaders = arrow_annotations(
+        [names[i] for i in named], rx[named], ry[named], style,
+        PlotFrame(x_range=CIRCLE_RANGE, y_range=CIRCLE_RANGE, width_px=width, height_px=height))
+    fig.update_layout(annotations=list(fig.layout.annotations) + annotations,
+                      shapes=list(fig.layout.shapes) + leaders)
     return fig
 
 

@@ -48,6 +48,8 @@ from webapp.figures._points import (
     point_trace,
     resolve_groups,
 )
+from webapp.figures.arrow_labels import ARROW_COLOUR, NOMINAL_PLOT_PX, arrow_annotations, data_range, leader_line
+from webapp.figures.label_placement import PlotFrame, place_labels
 from webapp.figures.palette import ALL_SAMPLES_GROUP, NEUTRAL_COLOUR, GroupStyle
 from webapp.figures.text import count_text, escape_text, level_percent, percent, template_literal
 from webapp.figures.theme import TEXT_COLOUR, Style, axis_style, new_figure, style_for
@@ -82,7 +84,6 @@ DENSITY_BINS = 80
 ARROW_FILL = 0.8
 
 SCALINGS = ("correlation", "distance")
-ARROW_COLOUR = "#4A4F55"
 _SIGMA_DASHES = ("solid", "dash", "dot", "dashdot")
 _HOTELLING_DASH = "longdash"
 _DENSITY_COLOURSCALE = [[0.0, "#EEF0F2"], [1.0, "#2F3338"]]
@@ -128,7 +129,7 @@ class LoadingArrows:
             )
         if self.left_out:
             shown = len(self.variables)
-            text += f" The {shown} longest of {shown + self.left_out} arrows are drawn."
+            text += f" Showing the {shown} strongest of {shown + self.left_out} variables (longest arrows)."
         return text
 
 
@@ -193,49 +194,6 @@ def loading_arrows(
     dy.setflags(write=False)
     return LoadingArrows(variables=names, dx=dx, dy=dy, scaling=scaling, factor=factor,
                          left_out=total - len(names))
-
-
-def arrow_annotations(
-    variables: Sequence[str],
-    dx: np.ndarray,
-    dy: np.ndarray,
-    style: Style,
-    colour: str = ARROW_COLOUR,
-    *,
-    labels_inside: bool = False,
-) -> list[dict]:
-    """Two annotations per variable: an arrow from the origin to (dx, dy) and the name at the tip.
-
-    Names sit just beyond the tip, or with ``labels_inside`` just inside it
-    beside the shaft (for plots whose arrows reach the edge of the axes).
-    """
-    annotations = []
-    for name, tip_x, tip_y in zip(variables, np.asarray(dx).tolist(), np.asarray(dy).tolist()):
-        annotations.append(dict(
-            x=tip_x, y=tip_y, ax=0.0, ay=0.0,
-            xref="x", yref="y", axref="x", ayref="y",
-            text="", showarrow=True,
-            arrowhead=2, arrowsize=1.0, arrowwidth=style.arrow_width, arrowcolor=colour,
-            standoff=0, startstandoff=0,
-        ))
-        if not labels_inside:
-            placement = dict(
-                xanchor="left" if tip_x >= 0 else "right",
-                yanchor="bottom" if tip_y >= 0 else "top",
-                xshift=3 if tip_x >= 0 else -3,
-            )
-        elif abs(tip_x) >= abs(tip_y):  # mostly horizontal: above the shaft, towards the origin
-            placement = dict(xanchor="right" if tip_x >= 0 else "left", yanchor="bottom", yshift=2)
-        else:  # mostly vertical: right of the shaft, towards the origin
-            placement = dict(xanchor="left", yanchor="top" if tip_y >= 0 else "bottom", xshift=4)
-        annotations.append(dict(
-            x=tip_x, y=tip_y, xref="x", yref="y",
-            text=escape_text(name), showarrow=False,
-            font=dict(size=style.label_size, color=TEXT_COLOUR),
-            bgcolor="rgba(255,255,255,0.7)",
-            **placement,
-        ))
-    return annotations
 
 
 # --------------------------------------------------------------------------
@@ -383,6 +341,7 @@ def scores_figure(
     arrows: LoadingArrows | None = None,
     show_labels: bool = False,
     highlighted: str | None = None,
+    highlight_note: str | None = None,
     excluded_note: str | None = None,
     title: str | None = None,
     density: bool | None = None,
@@ -406,7 +365,9 @@ def scores_figure(
     Hotelling ellipse is dark grey and long-dashed.
 
     All strings are plain text; they are escaped before Plotly sees them.
-    ``highlighted`` draws a ring around the sample(s) with that label.
+    ``highlighted`` draws a ring around the sample(s) with that label and
+    writes the label beside it, followed by ``highlight_note`` (such as where
+    its contributions are shown).
     ``batch``: samples of a new batch scored against the model, drawn as dark
     stars on top (also in the density view).
     ``show_labels`` writes labels next to the points when there are at most
@@ -452,12 +413,14 @@ def scores_figure(
         xaxis={**axis_style(x_title), **({"constrain": "domain"} if presentation else {})},
         yaxis={**axis_style(y_title), "scaleanchor": "x", "scaleratio": 1,
                **({"constrain": "domain"} if presentation else {})},
-        # Legend below the plot elsewhere: with an equal aspect ratio, a side legend
-        # would take width the scores need.
+        # Elsewhere the legend goes below the plot: with an equal aspect ratio, a side
+        # legend would take width the scores need. Placed at the bottom of the figure
+        # (container coordinates), Plotly reserves its height below the axis title, so
+        # the legend never covers tick labels or the title, whatever the plot's height.
         # On a slide the side is free (the axes fit the data) and the legend goes there.
         legend=_slide_legend() if presentation else dict(
             traceorder="grouped", groupclick="toggleitem", orientation="h",
-            x=0.0, xanchor="left", y=-0.14, yanchor="top", bgcolor="rgba(255,255,255,0)"),
+            x=0.0, xanchor="left", y=0.0, yref="container", yanchor="bottom", bgcolor="rgba(255,255,255,0)"),
         dragmode="lasso" if not use_density else "zoom",
     )
 
@@ -480,12 +443,39 @@ def scores_figure(
     traces.extend(_ellipse_traces(ellipses, ellipse_groups, styles, style))
     if batch is not None:
         traces.append(batch_trace(batch, style.marker_size, axis_hover, style.label_size))
-    traces.extend(picked_ring(xs, ys, label_array, highlighted, style, batch))
+    rings = picked_ring(xs, ys, label_array, highlighted, style, batch)
+    traces.extend(rings)
     fig.add_traces(traces)
 
-    if arrows is not None:
-        fig.update_layout(annotations=list(fig.layout.annotations) + arrow_annotations(
-            arrows.variables, arrows.dx, arrows.dy, style))
+    # Axes fitted to what is drawn (points, ellipses, arrows, new batch), so the arrow names can
+    # be placed inside them; an equal aspect ratio then widens one of the two ranges.
+    x_range = data_range([xs, *(e.x for e in ellipses), *([arrows.dx] if arrows else []),
+                          *([batch.x] if batch is not None else [])])
+    y_range = data_range([ys, *(e.y for e in ellipses), *([arrows.dy] if arrows else []),
+                          *([batch.y] if batch is not None else [])])
+    if x_range is not None and y_range is not None:
+        fig.update_layout(xaxis_range=list(x_range), yaxis_range=list(y_range))
+        width, height = NOMINAL_PLOT_PX[("scores", presentation)]
+        frame = PlotFrame(x_range=x_range, y_range=y_range, width_px=width, height_px=height)
+        annotations, shapes, taken = [], [], []
+        if rings:  # the picked sample named at its point: the click's feedback where the eye is
+            text = str(highlighted) + (f" · {highlight_note}" if highlight_note else "")
+            x_at, y_at = float(rings[0].x[0]), float(rings[0].y[0])
+            # Bold and framed: estimated a little larger than plain text; kept just outside the ring.
+            (label,) = place_labels([x_at], [y_at], [text], style.label_size * 1.15, frame, origin=(x_at, y_at),
+                                    gap=style.marker_size * 1.5)
+            annotations.append(dict(
+                name="picked-label", x=label.x, y=label.y, xref="x", yref="y", xanchor="center", yanchor="middle",
+                text=f"<b>{escape_text(text)}</b>", showarrow=False, font=dict(size=style.label_size, color=TEXT_COLOUR),
+                bgcolor="rgba(255,255,255,0.92)", bordercolor=TEXT_COLOUR, borderwidth=1, borderpad=2))
+            shapes += [leader_line(label)] if label.leader else []
+            taken.append(frame.pixel_box(label.box))
+        if arrows is not None:
+            arrow_notes, leaders = arrow_annotations(arrows.variables, arrows.dx, arrows.dy, style, frame,
+                                                     obstacles=taken)
+            annotations, shapes = annotations + arrow_notes, shapes + leaders
+        fig.update_layout(annotations=list(fig.layout.annotations) + annotations,
+                          shapes=list(fig.layout.shapes) + shapes)
     return fig
 
 

@@ -32,6 +32,7 @@ __all__ = [
     "ZERO_LINE_COLOUR",
     "NOTES_ANNOTATION_NAME",
     "NOTE_WIDTH",
+    "HALF_NOTE_WIDTH",
     "wrap_note",
     "GRAPH_CONFIG",
     "Style",
@@ -87,6 +88,13 @@ PRESENTATION = Style(font_size=18, title_size=22, note_size=15, marker_size=11,
                      line_width=3.0, arrow_width=2.4, label_size=16)
 
 
+#: Notes are wrapped to lines of at most this many characters (annotations do not wrap).
+NOTE_WIDTH = 110
+#: The same for figures drawn at half the page width (about 450 px at 1280 px).
+HALF_NOTE_WIDTH = 64
+_TOOLBAR_CLEARANCE = 22  # pixels: Plotly's toolbar (about 22 px high) sits above a figure's title
+
+
 def style_for(presentation: bool) -> Style:
     """:data:`PRESENTATION` sizes for a projector, :data:`NORMAL` otherwise."""
     return PRESENTATION if presentation else NORMAL
@@ -115,17 +123,23 @@ def axis_style(title: str | None = None, *, zero_line: bool = True) -> dict:
     return axis
 
 
-def base_layout(style: Style, *, title: str | None = None, notes: list[str] = ()) -> dict:
+def base_layout(style: Style, *, title: str | None = None, notes: list[str] = (),
+                note_width: int = NOTE_WIDTH) -> dict:
     """Layout shared by every figure: fonts, colours, margins, legend, title and notes.
 
     ``title`` and each note are plain text (escaped here). Notes go into one
-    left-aligned annotation just above the plotting area, one line each.
+    left-aligned annotation just above the plotting area, wrapped to
+    ``note_width`` characters of the normal note size (fewer with larger
+    presentation text), so that half-width figures keep their notes whole.
+    The title sits at the figure's left edge below the height of Plotly's
+    toolbar, which appears at the top right.
     """
-    notes = [line for note in notes if note for line in wrap_note(note)]
+    width = max(30, int(note_width * NORMAL.note_size / style.note_size))
+    notes = [line for note in notes if note for line in wrap_note(note, width)]
     line_height = int(round(style.note_size * 1.45))
     top = 20
     if title:
-        top += style.title_size + 14
+        top += style.title_size + 14 + _TOOLBAR_CLEARANCE
     if notes:
         top += line_height * len(notes) + 6
     layout = dict(
@@ -158,12 +172,12 @@ def base_layout(style: Style, *, title: str | None = None, notes: list[str] = ()
         layout["title"] = dict(
             text=escape_text(title),
             x=0.0,
-            xref="paper",
+            xref="container",
             xanchor="left",
             yref="container",
             y=1.0,
             yanchor="top",
-            pad=dict(t=12),
+            pad=dict(t=12 + _TOOLBAR_CLEARANCE, l=8),
             font=dict(size=style.title_size),
         )
     if notes:
@@ -171,13 +185,9 @@ def base_layout(style: Style, *, title: str | None = None, notes: list[str] = ()
     return layout
 
 
-#: Notes are wrapped to lines of at most this many characters (annotations do not wrap).
-NOTE_WIDTH = 110
-
-
-def wrap_note(note: str) -> list[str]:
-    """Split a note into lines of at most :data:`NOTE_WIDTH` characters."""
-    return textwrap.wrap(note, NOTE_WIDTH, break_long_words=False, break_on_hyphens=False) or [note]
+def wrap_note(note: str, width: int = NOTE_WIDTH) -> list[str]:
+    """Split a note into lines of at most ``width`` characters."""
+    return textwrap.wrap(note, width, break_long_words=False, break_on_hyphens=False) or [note]
 
 
 def notes_annotation(notes: list[str], style: Style) -> dict:
@@ -198,9 +208,10 @@ def notes_annotation(notes: list[str], style: Style) -> dict:
     )
 
 
-def new_figure(style: Style, *, title: str | None = None, notes: list[str] = (), **layout) -> go.Figure:
+def new_figure(style: Style, *, title: str | None = None, notes: list[str] = (), note_width: int = NOTE_WIDTH,
+               **layout) -> go.Figure:
     """An empty figure with the base layout, updated with ``layout`` (figure-specific settings)."""
-    merged = base_layout(style, title=title, notes=notes)
+    merged = base_layout(style, title=title, notes=notes, note_width=note_width)
     for key, value in layout.items():
         merged[key] = {**merged[key], **value} if isinstance(value, dict) and isinstance(merged.get(key), dict) else value
     # Layouts built here are known to be valid (tests check every figure through

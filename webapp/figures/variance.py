@@ -27,7 +27,7 @@ import plotly.graph_objects as go
 from webapp.analysis.errors import OrdinateError
 from webapp.figures.palette import OKABE_ITO, POSITIVE_COLOUR
 from webapp.figures.text import count_text
-from webapp.figures.theme import MUTED_TEXT_COLOUR, TEXT_COLOUR, axis_style, new_figure, style_for
+from webapp.figures.theme import HALF_NOTE_WIDTH, MUTED_TEXT_COLOUR, TEXT_COLOUR, axis_style, new_figure, style_for
 
 __all__ = [
     "variance_figure",
@@ -173,6 +173,7 @@ def variance_figure(
     fig = new_figure(
         style,
         notes=notes,
+        note_width=HALF_NOTE_WIDTH,
         # Plain numbers: "PC10".."PC20" would be rotated and crowd the legend.
         xaxis={**axis_style("Component (PC number)", zero_line=False), "tickmode": "array", "tickvals": pcs.tolist(),
                "ticktext": [str(i) for i in pcs.tolist()], "tickangle": 0, "range": [0.4, m + 0.6]},
@@ -180,7 +181,9 @@ def variance_figure(
         yaxis2={**axis_style("Cumulative (%)", zero_line=False), "overlaying": "y", "side": "right",
                 "range": [0, 105], "showgrid": False,
                 "tickmode": "linear", "tick0": 0, "dtick": 20},
-        legend=dict(orientation="h", x=0.0, xanchor="left", y=-0.16, yanchor="top"),
+        # At the figure's bottom (container coordinates): Plotly reserves its height below the
+        # axis title, so the legend cannot cover the title however short the plot is.
+        legend=dict(orientation="h", x=0.0, xanchor="left", y=0.0, yref="container", yanchor="bottom"),
         bargap=0.25,
         shapes=shapes,
     )

@@ -17,6 +17,7 @@ from webapp.state.view_state import (
     SLIDE_FIGURES,
     CENTRINGS,
     ELLIPSE_MODES,
+    MAX_ARROWS,
     MAX_CONFIDENCE,
     MAX_PC,
     MAX_SIGMA,
@@ -174,6 +175,15 @@ def _read_components(text: str) -> int | None:
         raise _Unusable(f"'auto' or a whole number from 1 to {MAX_PC}") from None
 
 
+def _read_arrow_limit(text: str) -> int | None:
+    if text == "auto":
+        return None
+    try:
+        return _read_whole(1, MAX_ARROWS)(text)
+    except _Unusable:
+        raise _Unusable(f"'auto' or a whole number from 1 to {MAX_ARROWS}") from None
+
+
 def _read_confidence(text: str) -> float:
     expected = f"a number above {MIN_CONFIDENCE} and at most {MAX_CONFIDENCE}, such as 0.95"
     if not _DECIMAL_PATTERN.fullmatch(text):
@@ -244,6 +254,7 @@ PARAMETERS: tuple[UrlParameter, ...] = (
     UrlParameter("colour", "colour_by", "drawing", _read_colour, _write_colour),
     UrlParameter("arrows", "arrows", "drawing", _read_flag, _write_flag),
     UrlParameter("biplot", "biplot_scaling", "drawing", _read_choice(BIPLOT_SCALINGS), str),
+    UrlParameter("narrows", "arrow_limit", "drawing", _read_arrow_limit, lambda n: "auto" if n is None else str(n)),
     UrlParameter("labels", "labels", "drawing", _read_flag, _write_flag),
     UrlParameter("lpc", "loading_pc", "drawing", _read_whole(1, MAX_PC), str),
     UrlParameter("pick", "picked", "drawing", _read_optional_label, _write_optional),

@@ -31,6 +31,9 @@ __all__ = [
     "MIN_CONFIDENCE",
     "MAX_CONFIDENCE",
     "MAX_SLIDE",
+    "MAX_ARROWS",
+    "PAGE_ARROWS",
+    "SLIDE_ARROWS",
 ]
 
 
@@ -53,6 +56,9 @@ MAX_SIGMA = 10.0
 MIN_CONFIDENCE = 0.5  # exclusive
 MAX_CONFIDENCE = 0.9999  # inclusive
 MAX_SLIDE = 1000
+MAX_ARROWS = 200  # most arrows (and correlation-circle names) a link may ask for
+PAGE_ARROWS = 20  # arrows drawn by default on the dashboard ...
+SLIDE_ARROWS = 10  # ... and on a slide, read from the back of a room
 
 _TOKEN_PATTERN = re.compile(r"[A-Za-z0-9_-]{16,64}")
 
@@ -208,6 +214,7 @@ class ViewState:
     colour_by: str | None = None
     arrows: bool = True
     biplot_scaling: str = "correlation"
+    arrow_limit: int | None = None  # the N strongest arrows are drawn; None: PAGE_ARROWS, or SLIDE_ARROWS on slides
     labels: bool = False
     loading_pc: int = 1
     picked: str | None = None
@@ -246,6 +253,8 @@ class ViewState:
             "colour_by": colour_by,
             "arrows": _check_bool(self.arrows, "arrows"),
             "biplot_scaling": _check_choice(self.biplot_scaling, BIPLOT_SCALINGS, "biplot_scaling"),
+            "arrow_limit": None if self.arrow_limit is None else _check_int(self.arrow_limit, 1, MAX_ARROWS,
+                                                                            "arrow_limit"),
             "labels": _check_bool(self.labels, "labels"),
             "loading_pc": _check_int(self.loading_pc, 1, MAX_PC, "loading_pc"),
             "picked": _check_optional_text(self.picked, "picked"),
@@ -256,6 +265,13 @@ class ViewState:
         }
         for name, value in canonical.items():
             object.__setattr__(self, name, value)
+
+    @property
+    def arrows_shown(self) -> int:
+        """How many of the strongest arrows to draw: ``arrow_limit``, or the default of the mode."""
+        if self.arrow_limit is not None:
+            return self.arrow_limit
+        return SLIDE_ARROWS if self.present else PAGE_ARROWS
 
     def unsaved(self) -> ViewState:
         """This view detached from the saved view it was opened from (after any change)."""

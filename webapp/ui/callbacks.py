@@ -25,6 +25,7 @@ from webapp.figures.message import message_figure
 from webapp.state import NO_COLOUR, ViewState, parse_query, to_query
 from webapp.ui import layout as L
 from webapp.ui import view_model as vm
+from webapp.ui.picking import register_picking
 from webapp.ui.components import (
     batch_panel,
     dataset_summary,
@@ -53,6 +54,7 @@ def register_callbacks(app, services) -> None:
     _register_write_url(app)
     _register_actions(app, services)
     _register_clientside(app)
+    register_picking(app)
 
 
 # --- URL -> everything shown ---------------------------------------------------------
@@ -91,6 +93,7 @@ _FIRST_OUTPUTS = [
     Output(L.ELLIPSE_BY, "value"),
     Output(L.OVERLAYS, "value"),
     Output(L.BIPLOT_SCALING, "value"),
+    Output(L.ARROW_LIMIT, "value"),
     Output(L.COMPONENTS, "options"),
     Output(L.COMPONENTS, "value"),
     Output(L.CONFIDENCE, "value"),
@@ -297,6 +300,7 @@ def _first_outputs(view: "vm.View") -> list:
         s.ellipse_by,
         overlays,
         s.biplot_scaling,
+        AUTO if s.arrow_limit is None else s.arrow_limit,
         controls.component_options,
         AUTO if s.components is None else s.components,
         s.confidence,
@@ -340,6 +344,7 @@ def _register_write_url(app) -> None:
         Input(L.ELLIPSE_BY, "value"),
         Input(L.OVERLAYS, "value"),
         Input(L.BIPLOT_SCALING, "value"),
+        Input(L.ARROW_LIMIT, "value"),
         Input(L.COMPONENTS, "value"),
         Input(L.CONFIDENCE, "value"),
         Input(L.LOADING_PC, "value"),
@@ -348,21 +353,21 @@ def _register_write_url(app) -> None:
         prevent_initial_call=True,
     )
     def write_url(id_column, colour, variables_in, missing, centring, scaling, pc_x, pc_y, sigma, ellipse_by,
-                  overlays, biplot, components, confidence, loading_pc, variable_options, search):
+                  overlays, biplot, arrow_limit, components, confidence, loading_pc, variable_options, search):
         current, _ = parse_query(search)
         if current.dataset is None or current.present:
             raise PreventUpdate  # in presentation mode the controls show the slide, not the URL
         controls = dict(id_column=id_column, colour=colour, variables_in=variables_in, missing=missing,
                         centring=centring, scaling=scaling, pc_x=pc_x, pc_y=pc_y, sigma=sigma, ellipse_by=ellipse_by,
-                        overlays=overlays, biplot=biplot, components=components, confidence=confidence,
-                        loading_pc=loading_pc)
+                        overlays=overlays, biplot=biplot, arrow_limit=arrow_limit, components=components,
+                        confidence=confidence, loading_pc=loading_pc)
         all_variables = [option["value"] for option in variable_options or ()]
         return _search_if_changed(current, state_from_controls(current, all_variables, **controls))
 
 
 def state_from_controls(current: ViewState, all_variables, *, id_column, colour, variables_in, missing, centring,
                         scaling, pc_x, pc_y, sigma, ellipse_by, overlays, biplot, components, confidence,
-                        loading_pc) -> ViewState:
+                        loading_pc, arrow_limit=AUTO) -> ViewState:
     """The view state the controls describe; fields without a control keep their value."""
     overlays = overlays or ()
     chosen = set(variables_in or ())
@@ -381,6 +386,7 @@ def state_from_controls(current: ViewState, all_variables, *, id_column, colour,
         hotelling="hotelling" in overlays,
         labels="labels" in overlays,
         biplot_scaling=biplot or current.biplot_scaling,
+        arrow_limit=None if arrow_limit in (None, AUTO) else int(arrow_limit),
         components=None if components in (None, AUTO) else int(components),
         confidence=float(confidence or current.confidence),
         loading_pc=int(loading_pc or current.loading_pc),
@@ -450,16 +456,6 @@ def _register_actions(app, services) -> None:
             raise PreventUpdate
         variable = ctx.triggered_id["index"]
         return _search_if_changed(current, current.replace(transforms=tuple(p for p in current.transforms if p[0] != variable)))
-
-    @app.callback(url_out, Input(L.SCORES_GRAPH, "clickData"), Input(L.DIAGNOSTICS_GRAPH, "clickData"),
-                  State(L.URL, "search"), prevent_initial_call=True)
-    def pick_sample(scores_click, diagnostics_click, search):
-        current, _ = parse_query(search)
-        event = scores_click if ctx.triggered_id == L.SCORES_GRAPH else diagnostics_click
-        labels = vm.labels_from_event(event)
-        if not labels:
-            raise PreventUpdate
-        return _search_if_changed(current, current.replace(picked=labels[0]))
 
     @app.callback(url_out, Output(L.NOTICES, "children", allow_duplicate=True),
                   Output(L.MANAGE_LINKS, "data"),

@@ -137,6 +137,10 @@ def _verdict(value) -> str:
 MAX_FLAGGED_ROWS = 50
 
 
+#: Pattern-matching id type of the sample buttons in flagged tables (their index is the label).
+PICK_ROW = "pick-row"
+
+
 def flagged_table(rows: list[dict], *, heading: str | None = None,
                   empty_text: str = "No sample is above either limit at this confidence.") -> list:
     if not rows:
@@ -151,7 +155,9 @@ def flagged_table(rows: list[dict], *, heading: str | None = None,
             html.Thead(html.Tr([html.Th("Sample"), html.Th("T²"), html.Th("Q"), html.Th("Above")])),
             html.Tbody([
                 html.Tr([
-                    html.Td(row["label"]),
+                    # A button, so a row can be picked by mouse and keyboard alike (see ui.picking).
+                    html.Td(html.Button(row["label"], id={"type": PICK_ROW, "index": row["label"]}, n_clicks=0,
+                                        className="pick-row", title="Show why this sample stands out")),
                     html.Td(f"{row['t2']:.3g}", className="num"),
                     html.Td(f"{row['q']:.3g}", className="num"),
                     html.Td(" ".join(name for name, over in (("T²", row["over_t2"]), ("Q", row["over_q"])) if over)),

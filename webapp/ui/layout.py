@@ -10,7 +10,7 @@ from __future__ import annotations
 from dash import dcc, html
 
 from webapp.figures import GRAPH_CONFIG
-from webapp.state import BIPLOT_SCALINGS, CENTRINGS, MISSING_POLICIES, SCALINGS, TRANSFORMS
+from webapp.state import BIPLOT_SCALINGS, CENTRINGS, MISSING_POLICIES, PAGE_ARROWS, SCALINGS, TRANSFORMS
 
 URL = "url"
 UPLOAD_RESULT = "upload-result"
@@ -54,6 +54,7 @@ SIGMA_LEVELS = "sigma-levels"
 ELLIPSE_BY = "ellipse-by"
 OVERLAYS = "overlays"
 BIPLOT_SCALING = "biplot-scaling"
+ARROW_LIMIT = "arrow-limit"
 SCORES_GRAPH = "scores-graph"
 SELECTION_BAR = "selection-bar"
 EXCLUDE_SELECTED = "exclude-selected"
@@ -116,6 +117,7 @@ SLIDE_FIGURE_WORDS = {
     "diagnostics": "T² and Q diagnostics",
     "loadings": "Loadings and correlation circle",
 }
+ARROW_LIMIT_CHOICES = (3, 5, 10, 15, 20, 30, 50, 100)
 _WORDS = {
     "drop": "Leave samples out",
     "mean": "Fill with the mean",
@@ -312,6 +314,10 @@ def _scores_card() -> html.Section:
                 ]),
                 dcc.RadioItems(id=BIPLOT_SCALING, inline=True, options=[
                     {"label": _WORDS[s], "value": s} for s in BIPLOT_SCALINGS]),
+                _inline("arrows shown", dcc.Dropdown(
+                    id=ARROW_LIMIT, clearable=False, searchable=False, className="arrow-select",
+                    options=[{"label": f"auto ({PAGE_ARROWS})", "value": "auto"}]
+                    + [{"label": str(n), "value": n} for n in ARROW_LIMIT_CHOICES])),
             ]),
         ]),
         _graph(SCORES_GRAPH, "scores-graph"),

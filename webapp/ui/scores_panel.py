@@ -25,8 +25,6 @@ from webapp.figures import (
 from webapp.state import MAX_SIGMA, MAX_SIGMA_LEVELS, NO_COLOUR, ViewState
 
 HOVER_VARIABLES = 6
-# More arrows than this are unreadable on a biplot and slow to draw; the caption says so.
-MAX_BIPLOT_ARROWS = 20
 @dataclass(frozen=True, eq=False)
 class BatchScores:
     """A new batch scored against the view's model (at the view's K and confidence)."""
@@ -85,7 +83,7 @@ def scores_panel(state: ViewState, fitted, table, groups, pc_x: int, pc_y: int, 
             pca.loadings[:, [pc_x - 1, pc_y - 1]], prepared.variables,
             pca.eigenvalues[[pc_x - 1, pc_y - 1]], state.biplot_scaling,
             float(np.max(np.abs(np.concatenate([x, y])))) if x.size else 1.0,
-            max_arrows=MAX_BIPLOT_ARROWS,
+            max_arrows=state.arrows_shown,  # the strongest N; the caption says so
         )
     hover = {v: table.frame[v].to_numpy()[prepared.row_positions] for v in prepared.variables[:HOVER_VARIABLES]}
     return scores_figure(
@@ -93,6 +91,7 @@ def scores_panel(state: ViewState, fitted, table, groups, pc_x: int, pc_y: int, 
         x_title=axis_title(pc_x, float(ratios[pc_x - 1])), y_title=axis_title(pc_y, float(ratios[pc_y - 1])),
         hover_values=hover, ellipses=ellipses, ellipse_groups=owners, arrows=arrows,
         show_labels=state.labels, highlighted=state.picked, presentation=state.present,
+        highlight_note=None if state.present else "see Outlier diagnostics",
         batch=None if batch is None else BatchPoints(
             x=batch.matrix @ pca.loadings[:, pc_x - 1], y=batch.matrix @ pca.loadings[:, pc_y - 1],
             labels=np.asarray(batch.labels, dtype=object), name=batch_legend(batch)),

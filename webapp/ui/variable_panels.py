@@ -17,7 +17,7 @@ from webapp.figures import (
 from webapp.state import ViewState
 from webapp.ui.scores_panel import BatchScores
 
-MAX_CIRCLE_ARROWS = 30
+
 def contributions_panel(state: ViewState, fitted, diagnostics, batch: BatchScores | None = None):
     """Why the picked sample stands out: a sample of the model, or else of the new batch."""
     if state.picked is None:
@@ -60,14 +60,14 @@ def contributions_panel(state: ViewState, fitted, diagnostics, batch: BatchScore
     ])
 
 
-def circle_panel(fitted, pc_x: int, pc_y: int, presentation: bool) -> go.Figure:
+def circle_panel(fitted, pc_x: int, pc_y: int, presentation: bool, max_arrows: int) -> go.Figure:
     correlations = variable_correlations(fitted)
     ratios = fitted.pca.explained_variance_ratio
     return correlation_circle_figure(
         variables=fitted.prepared.variables,
         correlations_x=correlations[:, pc_x - 1], correlations_y=correlations[:, pc_y - 1],
         x_title=axis_title(pc_x, float(ratios[pc_x - 1])), y_title=axis_title(pc_y, float(ratios[pc_y - 1])),
-        presentation=presentation, max_arrows=MAX_CIRCLE_ARROWS,
+        presentation=presentation, max_arrows=max_arrows,
     )
 
 

@@ -40,7 +40,6 @@ from webapp.ui.saved_views import (  # noqa: F401  (part of this module's interf
 )
 from webapp.ui.scores_panel import (  # noqa: F401  (part of this module's interface)
     HOVER_VARIABLES,
-    MAX_BIPLOT_ARROWS,
     BatchScores,
     batch_legend,
     group_labels,
@@ -57,7 +56,6 @@ from webapp.ui.summary_panels import (  # noqa: F401  (part of this module's int
     table_summary,
 )
 from webapp.ui.variable_panels import (  # noqa: F401  (part of this module's interface)
-    MAX_CIRCLE_ARROWS,
     circle_panel,
     contributions_panel,
     variable_correlations,
@@ -329,7 +327,8 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
                 variables=fitted.prepared.variables, loadings=pca.loadings[:, loading_pc - 1], component=loading_pc,
                 explained_ratio=float(pca.explained_variance_ratio[loading_pc - 1]), presentation=state.present,
             )),
-            "circle": lambda: draw(keys["circle"], lambda: circle_panel(fitted, pc_x, pc_y, state.present)),
+            "circle": lambda: draw(keys["circle"], lambda: circle_panel(fitted, pc_x, pc_y, state.present,
+                                                                            state.arrows_shown)),
         }),
         provenance=provenance(resolved, diagnostics, colour_column),
         complete=resolved.complete,
@@ -349,14 +348,14 @@ def _panel_keys(state: ViewState, resolved: Resolved, diagnostics, colour_column
     k, confidence = diagnostics.components, diagnostics.confidence
     return {
         "scores": ("scores", fit[0], pc_x, pc_y, state.sigma_levels, state.ellipse_by, state.arrows,
-                   state.biplot_scaling, state.labels, state.picked, colour_column, state.present,
+                   state.biplot_scaling, state.arrows_shown, state.labels, state.picked, colour_column, state.present,
                    state.hotelling and confidence, batch_id),
         "variance": ("variance", fit, k, state.present),
         "diagnostics": ("diagnostics", fit[0], k, confidence, state.picked, colour_column, state.present, batch_id),
         "batch": ("batch", fit[0], k, confidence, batch_id),
         "flagged": ("flagged", fit[0], k, confidence),
         "loadings": ("loadings", fit[0], loading_pc, state.present),
-        "circle": ("circle", fit[0], pc_x, pc_y, state.present),
+        "circle": ("circle", fit[0], pc_x, pc_y, state.present, state.arrows_shown),
     }
 
 

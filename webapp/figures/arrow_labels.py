@@ -1,0 +1,92 @@
+"""Arrows from the origin with their names placed clear of each other (biplot, correlation circle).
+
+The names are placed by :func:`webapp.figures.label_placement.place_labels`
+in a nominal plot area (:data:`NOMINAL_PLOT_PX`), a size the drawn plot
+reaches at least on a 1280 px wide screen (a larger plot only adds room
+between the names); a name moved away from its tip is
+joined to it by a thin leader line (a layout shape).
+"""
+
+from __future__ import annotations
+
+from typing import Sequence
+
+import numpy as np
+
+from webapp.figures.label_placement import PlacedLabel, PlotFrame, place_labels
+from webapp.figures.text import escape_text
+from webapp.figures.theme import MUTED_TEXT_COLOUR, TEXT_COLOUR, Style
+
+__all__ = ["ARROW_COLOUR", "NOMINAL_PLOT_PX", "arrow_annotations", "data_range", "leader_line"]
+
+ARROW_COLOUR = "#4A4F55"
+
+#: Smallest expected plot area (width, height in pixels) per figure kind and
+#: presentation mode. Measured on the dashboard at 1280 x 800: the scores plot
+#: area is about 800 x 480 px, the correlation circle about 270 x 270 px.
+NOMINAL_PLOT_PX = {
+    ("scores", False): (640.0, 430.0),
+    ("scores", True): (900.0, 280.0),  # slides: measured 1390 x 285 px at 1600 x 900
+    ("circle", False): (250.0, 250.0),
+    ("circle", True): (340.0, 340.0),
+}
+
+
+def data_range(values: Sequence[np.ndarray], pad: float = 0.06) -> tuple[float, float] | None:
+    """The span of the finite values of several arrays, widened by ``pad`` of the span on each side."""
+    finite = [np.asarray(v, dtype=np.float64).ravel() for v in values]
+    finite = [v[np.isfinite(v)] for v in finite]
+    finite = [v for v in finite if v.size]
+    if not finite:
+        return None
+    lo = min(float(v.min()) for v in finite)
+    hi = max(float(v.max()) for v in finite)
+    span = hi - lo if hi > lo else max(abs(hi), 1.0)
+    return lo - pad * span, hi + pad * span
+
+
+def arrow_annotations(
+    variables: Sequence[str],
+    dx: np.ndarray,
+    dy: np.ndarray,
+    style: Style,
+    frame: PlotFrame,
+    colour: str = ARROW_COLOUR,
+    *,
+    obstacles: Sequence[tuple[float, float, float, float]] = (),
+) -> tuple[list[dict], list[dict]]:
+    """Annotations (an arrow from the origin to (dx, dy), then the name) and leader-line shapes.
+
+    Names are centred on the places found by ``place_labels`` in ``frame``;
+    the arrows come first, then the names, in the order of ``variables``.
+    ``obstacles``: boxes in the frame's pixels that names keep clear of.
+    """
+    tips_x, tips_y = np.asarray(dx, dtype=np.float64), np.asarray(dy, dtype=np.float64)
+    names = [str(v) for v in variables]
+    arrows = [dict(
+        x=float(x), y=float(y), ax=0.0, ay=0.0,
+        xref="x", yref="y", axref="x", ayref="y",
+        text="", showarrow=True,
+        arrowhead=2, arrowsize=1.0, arrowwidth=style.arrow_width, arrowcolor=colour,
+        standoff=0, startstandoff=0,
+    ) for x, y in zip(tips_x.tolist(), tips_y.tolist())]
+    placed = place_labels(tips_x, tips_y, names, style.label_size, frame, obstacles=obstacles)
+    labels = []
+    leaders = [leader_line(label) for label in placed if label.leader]
+    for label in placed:
+        labels.append(dict(
+            name="arrow-label", x=label.x, y=label.y, xref="x", yref="y",
+            xanchor="center", yanchor="middle",
+            text=escape_text(label.text), showarrow=False,
+            font=dict(size=style.label_size, color=TEXT_COLOUR),
+            bgcolor="rgba(255,255,255,0.78)", borderpad=1,
+        ))
+    return arrows + labels, leaders
+
+
+def leader_line(label: PlacedLabel) -> dict:
+    """A thin line (layout shape) from a label's anchor to the nearest point of its box."""
+    end_x, end_y = label.leader_end()
+    return dict(type="line", xref="x", yref="y", layer="above",
+                x0=label.anchor_x, y0=label.anchor_y, x1=end_x, y1=end_y,
+                line=dict(color=MUTED_TEXT_COLOUR, width=0.8))
