@@ -48,7 +48,7 @@ from webapp.figures._points import (
     point_trace,
     resolve_groups,
 )
-from webapp.figures.arrow_labels import ARROW_COLOUR, NOMINAL_PLOT_PX, arrow_annotations, data_range, leader_line
+from webapp.figures.arrow_labels import NOMINAL_PLOT_PX, arrow_annotations, data_range, leader_line
 from webapp.figures.label_placement import PlotFrame, place_labels
 from webapp.figures.palette import ALL_SAMPLES_GROUP, NEUTRAL_COLOUR, GroupStyle
 from webapp.figures.text import count_text, escape_text, level_percent, percent, template_literal
