@@ -186,12 +186,13 @@ def msc(block: np.ndarray, reference: np.ndarray) -> tuple[np.ndarray, dict[int,
 def savgol(block: np.ndarray, settings: tuple[int, int, int], segments) -> tuple[np.ndarray, dict[int, str]]:
     """Savitzky–Golay filter of each segment ``[start, stop)`` of the block's columns, along the axis."""
     window, order, derivative = settings
-    out = np.empty_like(block)
+    complete = np.isfinite(block).all(axis=1)
+    out = np.full_like(block, np.nan)
     for start, stop in segments:
-        out[:, start:stop] = scipy.signal.savgol_filter(
-            block[:, start:stop], window, order, deriv=derivative, delta=1.0, axis=1, mode="interp"
+        out[complete, start:stop] = scipy.signal.savgol_filter(
+            block[complete, start:stop], window, order, deriv=derivative, delta=1.0, axis=1, mode="interp"
         )
-    gaps = np.flatnonzero(~np.isfinite(block).all(axis=1))
+    gaps = np.flatnonzero(~complete)
     return out, {int(r): "its spectrum has missing values, which Savitzky–Golay filtering cannot bridge" for r in gaps}
 
 
