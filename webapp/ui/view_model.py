@@ -17,6 +17,7 @@ import plotly.graph_objects as go
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.pipeline import diagnose
 from webapp.analysis.recipe import Recipe
+from webapp.analysis.variable_axis import table_axis
 from webapp.figures import (
     BatchPoints,
     diagnostics_figure,
@@ -219,6 +220,13 @@ def recipe_for(state: ViewState, table) -> tuple[Recipe, tuple[str, ...]]:
     lacking = [v for v, _ in state.transforms if v not in numeric]
     if lacking:
         notices.append(f"Ignored the transforms of variable(s) this data lacks: {', '.join(lacking)}.")
+    ranges, row_correction, savgol = state.ranges, state.row_correction, state.savgol
+    if (ranges or row_correction != "none" or savgol is not None) and table_axis(table, label_column) is None:
+        notices.append(
+            "Ignored the spectral settings of the link (variable ranges, row correction, Savitzky–Golay): "
+            "this data has no variable axis (numeric column names that are positions, such as 1100, 1102, …)."
+        )
+        ranges, row_correction, savgol = (), "none", None
     recipe = Recipe(
         variables=variables,
         excluded_samples=state.excluded,
@@ -227,6 +235,9 @@ def recipe_for(state: ViewState, table) -> tuple[Recipe, tuple[str, ...]]:
         centring=state.centring,
         scaling=state.scaling,
         id_column=id_column,
+        ranges=ranges,
+        row_correction=row_correction,
+        savgol=savgol,
     )
     return recipe, tuple(notices)
 
