@@ -61,3 +61,26 @@ def test_a_window_too_long_for_a_range_is_an_error_message(services, reflectance
     token = _token(services, wavelengths, X)
     view = vm.build_view(services, ViewState(dataset=token, ranges=((400, 420),), savgol=(11, 2, 0)), wait=True)
     assert len(view.errors) == 1 and "window of 11 points is longer than the run of variables 400–420" in view.errors[0]
+
+
+def test_loadings_of_spectra_are_a_line_along_the_axis_broken_between_ranges(services, reflectance):
+    wavelengths, X = reflectance
+    token = _token(services, wavelengths, X)
+    view = vm.build_view(services, ViewState(dataset=token, ranges=((400, 500), (600, 700)), loading_pc=2), wait=True)
+    assert view.errors == ()
+    line = view.loadings_figure.data[0]
+    x, y = np.asarray(line.x, float), np.asarray(line.y, float)
+    kept = wavelengths[((wavelengths >= 400) & (wavelengths <= 500)) | ((wavelengths >= 600) & (wavelengths <= 700))]
+    gap = np.flatnonzero(np.isnan(x))
+    assert gap.tolist() == [21]  # after 400..500 (21 positions), before 600
+    np.testing.assert_array_equal(x[~np.isnan(x)], kept)
+    # The line is PC2's loadings: scikit-learn's on the autoscaled kept block, up to sign.
+    block = X[:, np.isin(wavelengths, kept)]
+    reference = PCA(2).fit((block - block.mean(0)) / block.std(0, ddof=1)).components_[1]
+    ours = y[~np.isnan(y)]
+    np.testing.assert_allclose(ours, np.sign(ours @ reference) * reference, atol=1e-6)  # float32 on the wire
+
+
+def test_loadings_of_a_table_without_an_axis_stay_bars(services, iris_token):
+    view = vm.build_view(services, ViewState(dataset=iris_token), wait=True)
+    assert view.loadings_figure.data[0].type == "bar"

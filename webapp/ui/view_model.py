@@ -22,7 +22,6 @@ from webapp.figures import (
     BatchPoints,
     diagnostics_figure,
     flagged_samples,
-    loadings_bar_figure,
     variance_figure,
     variance_table_rows,
     variance_table_tsv,
@@ -60,6 +59,7 @@ from webapp.ui.summary_panels import (  # noqa: F401  (part of this module's int
 from webapp.ui.variable_panels import (  # noqa: F401  (part of this module's interface)
     MAX_CIRCLE_ARROWS,
     circle_panel,
+    loadings_panel,
     contributions_panel,
     variable_correlations,
 )
@@ -336,10 +336,8 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
                 fitted.prepared.sample_labels, diagnostics.t2, diagnostics.q, diagnostics.t2_limit,
                 diagnostics.q_limit)),
             "contributions": lambda: contributions_panel(state, fitted, diagnostics, batch),
-            "loadings": lambda: draw(keys["loadings"], lambda: loadings_bar_figure(
-                variables=fitted.prepared.variables, loadings=pca.loadings[:, loading_pc - 1], component=loading_pc,
-                explained_ratio=float(pca.explained_variance_ratio[loading_pc - 1]), presentation=state.present,
-            )),
+            "loadings": lambda: draw(keys["loadings"], lambda: loadings_panel(
+                table, fitted, loading_pc, state.present)),
             "circle": lambda: draw(keys["circle"], lambda: circle_panel(fitted, pc_x, pc_y, state.present)),
         }),
         provenance=provenance(resolved, diagnostics, colour_column),
