@@ -224,3 +224,12 @@ def test_savitzky_golay_refuses_spectra_with_gaps(reflectance):
     X[2, 10] = np.nan
     with pytest.raises(OrdinateError, match="'P002': its spectrum has missing values"):
         prepare(spectra_table(wavelengths, X), Recipe(savgol=(5, 2, 0), missing="mean"))
+
+
+def test_msc_reference_leaves_out_samples_that_drop_removes(scatter_like):
+    wavelengths, X = scatter_like
+    X = X.copy()
+    X[0, 3] = np.nan  # dropped under "drop": not part of the model, nor of MSC's reference
+    prepared = prepare(spectra_table(wavelengths, X), raw(row_correction="msc"))
+    np.testing.assert_allclose(prepared.preprocessor.spectral.reference, X[1:].mean(axis=0), atol=1e-15)
+    assert prepared.dropped_samples == ("P000",)

@@ -300,8 +300,11 @@ def prepare(table, recipe: Recipe) -> PreparedData:
     input_variables, steps = None, None
     if recipe.row_correction != "none" or recipe.savgol is not None:
         _require_shape(values.shape[0], len(variables), recipe)
+        # Under "drop", samples with gaps leave the model, so they stay out of MSC's reference too.
+        reference_rows = ~np.isnan(values).any(axis=1) if recipe.missing == "drop" else None
         values, steps = fit_spectral_steps(
-            values, variables, axis, spectral_block, segments, recipe.row_correction, recipe.savgol, labels
+            values, variables, axis, spectral_block, segments, recipe.row_correction, recipe.savgol, labels,
+            reference_rows,
         )
         input_variables = variables
     transforms = tuple(recipe.transform_for(v) for v in variables)

@@ -261,11 +261,15 @@ def spectral_columns(variables, axis, ranges) -> tuple[tuple[str, ...], np.ndarr
     return variables, np.array(order, dtype=int), tuple(zip(bounds[:-1], bounds[1:]))
 
 
-def fit_spectral_steps(values, variables, axis, columns, segments, row_correction, savgol_settings, labels):
-    """Fit the steps on the reference samples and apply them; raises for a sample they cannot take."""
+def fit_spectral_steps(values, variables, axis, columns, segments, row_correction, savgol_settings, labels,
+                       reference_rows=None):
+    """Fit the steps on the reference samples and apply them; raises for a sample they cannot take.
+
+    MSC's reference is the mean spectrum of ``reference_rows`` (all rows when None).
+    """
     reference = None
     if row_correction == "msc":
-        block = values[:, columns]
+        block = values[:, columns] if reference_rows is None else values[reference_rows][:, columns]
         with np.errstate(invalid="ignore"), warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)  # a position with no values: refused below
             reference = np.nanmean(block, axis=0) if np.isnan(block).any() else block.mean(axis=0)
