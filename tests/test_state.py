@@ -79,6 +79,11 @@ valid_states = st.builds(
     centring=st.sampled_from(state_module.CENTRINGS),
     scaling=st.sampled_from(state_module.SCALINGS),
     id_column=st.none() | labels,
+    ranges=st.lists(
+        st.tuples(*[st.floats(min_value=-1e6, max_value=1e6, allow_nan=False)] * 2), max_size=state_module.MAX_RANGES
+    ),
+    row_correction=st.sampled_from(state_module.ROW_CORRECTIONS),
+    savgol=st.none() | st.sampled_from([(3, 2, 0), (5, 2, 1), (15, 2, 1), (21, 3, 2), (999, 6, 2), (7, 0, 0)]),
     components=st.none() | pcs,
     confidence=st.floats(min_value=0.5, max_value=0.9999, exclude_min=True),
     pc_x=pcs,
@@ -194,7 +199,7 @@ def test_default_values():
 
 def test_default_query_spells_out_every_setting():
     assert to_query(ViewState()) == (
-        "v=1&ds=&off=&ex=&exset=&tf=&missing=drop&centre=mean&scale=unit&id=auto&k=auto&conf=0.95"
+        "v=1&ds=&off=&ex=&exset=&tf=&missing=drop&centre=mean&scale=unit&id=auto&rng=&rowc=none&sg=off&k=auto&conf=0.95"
         "&x=1&y=2&sigma=2&ellipse=group&t2ellipse=0&colour=auto&arrows=1&biplot=correlation"
         "&narrows=auto&labels=0&lpc=1&pick=&batch=&view=&present=0&slide=1&show=scores&follow="
     )
@@ -435,6 +440,9 @@ ALTERNATIVE_VALUES = {
     "centring": "none",
     "scaling": "pareto",
     "id_column": "batch",
+    "ranges": ((1100.0, 1700.0), (2000.0, 2400.0)),
+    "row_correction": "snv",
+    "savgol": (15, 2, 1),
     "components": 3,
     "confidence": 0.99,
     "pc_x": 3,
@@ -571,3 +579,50 @@ def test_arrow_limit_is_validated():
         ViewState(arrow_limit=0)
     with pytest.raises(ViewStateError):
         ViewState(arrow_limit=True)
+
+
+# --------------------------------------------------------------------------------------
+# Spectral recipe parameters: rng, rowc, sg
+# --------------------------------------------------------------------------------------
+
+
+def test_spectral_parameters_read_and_write_in_one_form():
+    view, notices = parse_query("rng=2000-2400,1100-1700,1600-1800&rowc=msc&sg=15,2,1")
+    assert notices == ()
+    assert view.ranges == ((1100.0, 1800.0), (2000.0, 2400.0))  # sorted, overlapping ranges merged
+    assert view.row_correction == "msc" and view.savgol == (15, 2, 1)
+    query = to_query(view)
+    assert "rng=1100-1800,2000-2400&rowc=msc&sg=15,2,1" in query
+    assert parse_query(query) == (view, ())
+
+
+def test_negative_and_fractional_positions_survive():
+    view = ViewState(ranges=((-2.5, -0.5), (0.125, 3e-7)))
+    assert parse_query(to_query(view)) == (view, ())
+    assert parse_query("rng=-2.5--0.5")[0].ranges == ((-2.5, -0.5),)
+
+
+@pytest.mark.parametrize(
+    "query, field",
+    [
+        ("sg=4,2,1", "savgol"),  # even window
+        ("sg=5,5,0", "savgol"),  # order not below the window
+        ("sg=7,1,2", "savgol"),  # derivative above the order
+        ("sg=7,2", "savgol"),
+        ("sg=1001,2,1", "savgol"),
+        ("rng=1100", "ranges"),
+        ("rng=a-b", "ranges"),
+        ("rng=" + ",".join(f"{i}-{i}.5" for i in range(21)), "ranges"),
+        ("rowc=detrend", "row_correction"),
+    ],
+)
+def test_unusable_spectral_settings_fall_back_with_a_notice(query, field):
+    view, notices = parse_query(query)
+    assert getattr(view, field) == getattr(ViewState(), field)
+    assert len(notices) == 1 and notices[0].startswith(f"Ignored the setting '{query.split('=')[0]}=")
+
+
+def test_links_without_spectral_parameters_read_as_before():
+    view, notices = parse_query("v=1&scale=pareto&k=3")
+    assert notices == ()
+    assert (view.ranges, view.row_correction, view.savgol) == ((), "none", None)

@@ -104,3 +104,28 @@ def test_correlation_circle_leaves_out_variables_without_a_finite_correlation(ir
     notes = " ".join(a.text.replace("<br>", " ") for a in fig.layout.annotations if "Not drawn" in a.text)
     assert f"'{iris['variables'][1]}'" in notes and f"'{iris['variables'][3]}'" in notes
     fig.to_json()  # serialisable as sent to the page
+
+
+# --- loading spectra along a variable axis -------------------------------------------
+
+
+def test_loading_spectrum_is_one_float32_line_broken_between_ranges():
+    from webapp.figures import loadings_line_figure
+
+    positions = np.array([1100, 1102, 1104, 2000, 2002, 2004], dtype=float)
+    loadings = np.array([0.1, 0.3, -0.2, 0.5, 0.4, -0.1])
+    fig = loadings_line_figure(positions=positions, loadings=loadings, breaks_after=[2], component=1,
+                               explained_ratio=0.5, axis_label="nm", left_out=["moisture"])
+    assert len(fig.data) == 1
+    line = fig.data[0]
+    assert line.mode == "lines" and line.connectgaps is False
+    assert np.asarray(line.y).dtype == np.float32
+    np.testing.assert_array_equal(np.asarray(line.x)[:3], positions[:3])
+    assert np.isnan(np.asarray(line.x)[3]) and np.isnan(np.asarray(line.y)[3])
+    np.testing.assert_allclose(np.asarray(line.y)[4:], loadings[3:], rtol=1e-6)
+    notes = " ".join(a.text for a in fig.layout.annotations)
+    assert "'moisture'" in notes
+    assert fig.layout.xaxis.title.text == "nm" and fig.layout.xaxis.autorange is None
+    wavenumbers = loadings_line_figure(positions=positions[::-1], loadings=loadings, component=1,
+                                       explained_ratio=0.5, axis_label="(cm-1)", reversed_axis=True)
+    assert wavenumbers.layout.xaxis.autorange == "reversed"

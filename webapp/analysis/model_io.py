@@ -5,6 +5,10 @@ reference samples were scored, and nothing about the reference samples
 themselves beyond counts (so a model can be shared without the raw data).
 The schema is documented in docs/model-format.md; ``schema`` and
 ``schema_version`` identify it, and readers refuse versions they do not know.
+Version 2 adds the spectral steps (variable ranges, SNV/MSC with MSC's reference
+spectrum, Savitzky–Golay); it is written only for models that use them, so a
+model without them stays version 1 and earlier readers keep reading it, while
+they refuse a model whose steps they could not apply.
 """
 
 from __future__ import annotations
@@ -20,9 +24,11 @@ from webapp.analysis.diagnostics import hotelling_t2, model_q_limit, model_t2_li
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.pipeline import Analysis, residual_moments
 from webapp.analysis.recipe import Preprocessor, Recipe
+from webapp.analysis.spectra import ROW_CORRECTIONS, SpectralSteps, check_savgol
 
 SCHEMA = "ordinate-pca-model"
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2  # the newest version written; see READABLE_VERSIONS
+READABLE_VERSIONS = (1, 2)
 
 
 @dataclass(frozen=True, eq=False)
@@ -87,9 +93,9 @@ def model_from_analysis(analysis: Analysis) -> ReferenceModel:
 
 def model_to_dict(model: ReferenceModel) -> dict:
     pre = model.preprocessor
-    return {
+    data = {
         "schema": SCHEMA,
-        "schema_version": SCHEMA_VERSION,
+        "schema_version": SCHEMA_VERSION if model.recipe.uses_axis else 1,
         "engine_version": model.engine_version,
         "recipe": model.recipe.to_dict(),
         "variables": list(pre.variables),
@@ -109,6 +115,17 @@ def model_to_dict(model: ReferenceModel) -> dict:
         "q_limit": float(model.q_limit),
         "q_limit_method": model.q_limit_method,
     }
+    if pre.spectral is not None:
+        steps = pre.spectral
+        data["input_variables"] = list(pre.input_variables)
+        data["spectral"] = {
+            "columns": [int(j) for j in steps.columns],
+            "segments": [[int(start), int(stop)] for start, stop in steps.segments],
+            "row_correction": steps.row_correction,
+            "reference": None if steps.reference is None else [float(v) for v in steps.reference],
+            "savgol": None if steps.savgol is None else list(steps.savgol),
+        }
+    return data
 
 
 def save_model(model: ReferenceModel, path: str | Path) -> None:
@@ -129,10 +146,10 @@ def model_from_dict(data: dict) -> ReferenceModel:
     if not isinstance(data, dict) or data.get("schema") != SCHEMA:
         raise OrdinateError("This file is not an Ordinate PCA model (its 'schema' field is missing or different).")
     version = data.get("schema_version")
-    if version != SCHEMA_VERSION:
+    if version not in READABLE_VERSIONS:
         raise OrdinateError(
-            f"This model was written in format version {version}; this Ordinate reads version {SCHEMA_VERSION}. "
-            "Use a matching Ordinate version or re-save the model."
+            f"This model was written in format version {version}; this Ordinate reads versions "
+            f"{', '.join(map(str, READABLE_VERSIONS))}. Use a matching Ordinate version or re-save the model."
         )
     try:
         variables = tuple(str(v) for v in data["variables"])
@@ -143,6 +160,7 @@ def model_from_dict(data: dict) -> ReferenceModel:
             centre=_vector(data["centre"], len(variables)),
             scale=_vector(data["scale"], len(variables)),
             recipe=Recipe.from_dict(data["recipe"]),
+            **_spectral_fields(data, variables),
         )
         return ReferenceModel(
             recipe=preprocessor.recipe,
@@ -164,6 +182,34 @@ def model_from_dict(data: dict) -> ReferenceModel:
         raise OrdinateError(f"The model file is incomplete or damaged ({error}).") from error
 
 
+def _spectral_fields(data: dict, variables: tuple[str, ...]) -> dict:
+    """``input_variables`` and ``spectral`` of a version-2 model, checked for consistency."""
+    spectral = data.get("spectral")
+    if spectral is None:
+        return {}
+    inputs = tuple(str(v) for v in data["input_variables"])
+    columns = np.asarray(spectral["columns"], dtype=int)
+    segments = tuple((int(start), int(stop)) for start, stop in spectral["segments"])
+    method = str(spectral["row_correction"])
+    reference = None if spectral.get("reference") is None else _vector(spectral["reference"], columns.size)
+    bounds = [b for segment in segments for b in segment]
+    if (
+        method not in ROW_CORRECTIONS
+        or (method == "msc") != (reference is not None)
+        or columns.size == 0
+        or columns.min() < 0
+        or columns.max() >= len(inputs)
+        or not set(variables) <= set(inputs)
+        or bounds[0] != 0
+        or bounds[-1] != columns.size
+        or any(a != b for a, b in zip(bounds[1:-1:2], bounds[2:-1:2]))
+    ):
+        raise ValueError("the spectral steps do not match the model's variables")
+    savgol = spectral.get("savgol")
+    steps = SpectralSteps(columns, segments, method, reference, None if savgol is None else check_savgol(tuple(savgol)))
+    return {"input_variables": inputs, "spectral": steps}
+
+
 def project_table(model: ReferenceModel, table, confidence: float | None = None) -> Projection:
     """Score the samples of an ingested table against ``model``.
 
@@ -172,7 +218,8 @@ def project_table(model: ReferenceModel, table, confidence: float | None = None)
     """
     confidence = model.confidence if confidence is None else confidence
     frame = table.frame
-    extra = tuple(c for c in table.numeric_columns if c not in model.variables and c != table.id_column)
+    used = set(model.preprocessor.input_variables or model.variables)
+    extra = tuple(c for c in table.numeric_columns if c not in used and c != table.id_column)
     matrix, filled, refused = model.preprocessor.transform_batch(frame)
     labels = tuple(table.sample_labels())
     if len(refused) == len(labels):
@@ -190,7 +237,8 @@ def project_table(model: ReferenceModel, table, confidence: float | None = None)
     if filled:
         warnings.append(f"{filled} missing value(s) in the new samples were set to the reference mean.")
     if extra:
-        warnings.append(f"Ignored column(s) the model does not use: {', '.join(extra)}.")
+        shown = ", ".join(extra[:6]) + (f" and {len(extra) - 6} more" if len(extra) > 6 else "")
+        warnings.append(f"Ignored {len(extra)} column(s) the model does not use: {shown}.")
     warnings += [f"Not scored: sample '{labels[row]}': {reason}." for row, reason in refused.items()]
     return Projection(
         sample_labels=tuple(label for label, keep in zip(labels, kept) if keep),

@@ -4,17 +4,28 @@ A :class:`Recipe` is immutable and has one canonical JSON form, used as the key
 for cached results and inside shared links. Applying it (:func:`prepare`) runs
 these steps in order:
 
-1. choose variables (default: every numeric column except the sample-ID column);
+1. choose variables (default: every numeric column except the sample-ID column)
+   and, on a table with a variable axis, keep the axis variables inside the
+   chosen ``ranges`` (:mod:`webapp.analysis.spectra`);
 2. leave out excluded samples (by label);
-3. per-variable transform: ``none``, ``log10``, ``ln``, ``log1p`` or ``sqrt``;
-4. missing values: ``drop`` samples that have any, ``mean`` imputation, or
+3. spectral row correction (``snv`` or ``msc``) and Savitzky–Golay filtering
+   of the axis variables, in that order (:mod:`webapp.analysis.spectra`);
+4. per-variable transform: ``none``, ``log10``, ``ln``, ``log1p`` or ``sqrt``;
+5. missing values: ``drop`` samples that have any, ``mean`` imputation, or
    ``iterative`` PCA imputation (an EM-style algorithm, see
    :mod:`webapp.analysis.impute`);
-5. centring: ``mean`` or ``none``;
-6. scaling: ``unit`` (divide by the standard deviation, ddof = 1: autoscaling,
+6. centring: ``mean`` or ``none``;
+7. scaling: ``unit`` (divide by the standard deviation, ddof = 1: autoscaling,
    i.e. correlation-matrix PCA), ``pareto`` (divide by the square root of the
    standard deviation; van den Berg et al. 2006, BMC Genomics 7:142),
    ``range`` (divide by max - min) or ``none`` (covariance-matrix PCA).
+
+Why this order: range selection first, so that correction and filter see only
+the chosen part of the spectrum; row correction before the filter, because the
+scatter model of SNV and MSC (an offset and a multiplicative factor per
+sample) holds for the measured spectrum, not for its derivative; per-variable
+transforms, missing values, centring and scaling then act on the spectral
+variables as on any others (docs/methods.md).
 
 Variables with zero variance cannot be scaled; under any scaling other than
 ``none`` they are left out with a warning naming them.
@@ -33,12 +44,28 @@ import pandas as pd
 
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.impute import iterative_pca_impute, scale_divisors
+from webapp.analysis.spectra import (
+    ROW_CORRECTIONS,
+    SpectralSteps,
+    canonical_ranges,
+    check_savgol,
+    fit_spectral_steps,
+    range_text,
+    row_correction_words,
+    savgol_words,
+    spectral_columns,
+)
+from webapp.analysis.transforms import apply_transforms, domain_reasons
+from webapp.analysis.variable_axis import table_axis
 
 TRANSFORMS = ("none", "log10", "ln", "log1p", "sqrt")
 MISSING_STRATEGIES = ("drop", "mean", "iterative")
 CENTRINGS = ("mean", "none")
 SCALINGS = ("unit", "none", "pareto", "range")
 RECIPE_VERSION = 1
+# Recipes with spectral steps are written as version 2; without them, as before
+# (so earlier recipes keep their canonical JSON and cache keys).
+SPECTRAL_RECIPE_VERSION = 2
 MIN_SAMPLES = 3
 MIN_VARIABLES = 2
 
@@ -62,8 +89,14 @@ class Recipe:
     centring: str = "mean"
     scaling: str = "unit"
     id_column: str | None = None
+    ranges: tuple[tuple[float, float], ...] = ()
+    row_correction: str = "none"
+    savgol: tuple[int, int, int] | None = None  # window, polynomial order, derivative
 
     def __post_init__(self):
+        _check_choice("row correction", self.row_correction, ROW_CORRECTIONS)
+        object.__setattr__(self, "ranges", canonical_ranges(self.ranges))
+        object.__setattr__(self, "savgol", check_savgol(self.savgol))
         _check_choice("missing-value strategy", self.missing, MISSING_STRATEGIES)
         _check_choice("centring", self.centring, CENTRINGS)
         _check_choice("scaling", self.scaling, SCALINGS)
@@ -79,10 +112,22 @@ class Recipe:
     def transform_for(self, variable: str) -> str:
         return dict(self.transforms).get(variable, "none")
 
+    @property
+    def uses_axis(self) -> bool:
+        """True when a step needs the table's variable axis (ranges, row correction, Savitzky–Golay)."""
+        return bool(self.ranges) or self.row_correction != "none" or self.savgol is not None
+
     def to_dict(self) -> dict:
         data = asdict(self)
         data["transforms"] = dict(self.transforms)
         data["version"] = RECIPE_VERSION
+        for name in ("ranges", "row_correction", "savgol"):
+            del data[name]
+        if self.uses_axis:  # new fields only when used: earlier recipes keep their exact form
+            data["version"] = SPECTRAL_RECIPE_VERSION
+            data["ranges"] = [list(pair) for pair in self.ranges]
+            data["row_correction"] = self.row_correction
+            data["savgol"] = None if self.savgol is None else list(self.savgol)
         return data
 
     def canonical_json(self) -> str:
@@ -100,13 +145,43 @@ class Recipe:
                 centring=data.get("centring", "mean"),
                 scaling=data.get("scaling", "unit"),
                 id_column=data.get("id_column"),
+                ranges=tuple(tuple(pair) for pair in data.get("ranges") or ()),
+                row_correction=data.get("row_correction", "none"),
+                savgol=None if data.get("savgol") is None else tuple(data["savgol"]),
             )
         except (TypeError, AttributeError) as error:
             raise OrdinateError(f"The saved preprocessing recipe is malformed ({error}).") from error
 
+    def steps(self) -> list[str]:
+        """The steps that act, in the order they are applied, in a few words each."""
+        steps = []
+        if self.ranges:
+            steps.append(f"range {range_text(self.ranges)}")
+        if self.row_correction != "none":
+            steps.append(self.row_correction.upper())
+        if self.savgol is not None:
+            steps.append(savgol_words(self.savgol))
+        if self.transforms:
+            steps.append("per-variable transforms")
+        steps.append({"drop": "samples with missing values left out", "mean": "mean filling",
+                      "iterative": "iterative PCA filling"}[self.missing])
+        if self.centring == "mean":
+            steps.append("mean-centring")
+        if self.scaling != "none":
+            steps.append({"unit": "autoscaling", "pareto": "Pareto scaling", "range": "range scaling"}[self.scaling])
+        return steps
+
     def describe(self) -> list[str]:
-        """The recipe in plain words, one sentence per step."""
+        """The recipe in plain words, one sentence per step, in the order the steps are applied."""
         lines = []
+        if self.uses_axis:
+            lines.append("Steps in order: " + " → ".join(self.steps()) + ".")
+        if self.ranges:
+            lines.append(f"Variable axis kept in the range(s) {range_text(self.ranges)}.")
+        if self.row_correction != "none":
+            lines.append(f"Each sample corrected by {row_correction_words(self.row_correction)}.")
+        if self.savgol is not None:
+            lines.append(f"{savgol_words(self.savgol)} along the variable axis.")
         if self.transforms:
             parts = [f"{_TRANSFORM_WORDS[t]} of {v}" for v, t in self.transforms]
             lines.append("Transformed: " + "; ".join(parts) + ".")
@@ -126,13 +201,21 @@ class Recipe:
 
 @dataclass(frozen=True, eq=False)
 class Preprocessor:
-    """Reference values that apply a fitted recipe to new samples."""
+    """Reference values that apply a fitted recipe to new samples.
+
+    ``variables`` are the model's variables; with spectral steps, the new
+    samples are first read at ``input_variables`` (the chosen variables before
+    variables without variation were left out), corrected and filtered by
+    ``spectral``, and then cut down to ``variables``.
+    """
 
     variables: tuple[str, ...]
     transforms: tuple[str, ...]
     centre: np.ndarray
     scale: np.ndarray
     recipe: Recipe
+    input_variables: tuple[str, ...] | None = None
+    spectral: SpectralSteps | None = None
 
     def transform_frame(self, frame: pd.DataFrame) -> tuple[np.ndarray, int]:
         """Apply transforms, reference centring and scaling to new samples.
@@ -153,16 +236,24 @@ class Preprocessor:
         Returns (values, filled cells, {row position: reason}); refused rows keep
         NaN in ``values`` and are not counted as filled.
         """
-        missing_columns = [v for v in self.variables if v not in frame.columns]
+        needed = self.variables if self.spectral is None else self.input_variables
+        missing_columns = [v for v in needed if v not in frame.columns]
         if missing_columns:
             raise OrdinateError(
                 "The new data lacks variable(s) the model needs: " + _short_list(missing_columns) + "."
             )
-        values = _numeric_block(frame, self.variables)
-        refused = _domain_reasons(values, self.variables, self.transforms)
+        values = _numeric_block(frame, needed)
+        refused: dict[int, str] = {}
+        if self.spectral is not None:
+            values, refused = self.spectral.apply(values)
+            index = {variable: j for j, variable in enumerate(needed)}
+            values = values[:, [index[v] for v in self.variables]]
+        for row, reason in domain_reasons(values, self.variables, self.transforms).items():
+            refused[row] = f"{refused[row]}; {reason}" if row in refused else reason
+        refused = dict(sorted(refused.items()))
         rows = np.fromiter(refused, dtype=int, count=len(refused))
         values[rows] = np.nan
-        _apply_transforms(values, self.variables, self.transforms, labels=None)
+        apply_transforms(values, self.variables, self.transforms, labels=None)
         values -= self.centre
         values /= self.scale
         missing = ~np.isfinite(values)
@@ -200,11 +291,24 @@ def prepare(table, recipe: Recipe) -> PreparedData:
     id_column = _resolve_id_column(table, recipe)
     labels = np.asarray(_labels(table, id_column), dtype=object)
     variables = _resolve_variables(table, recipe, id_column)
+    if recipe.uses_axis:
+        axis = _required_axis(table, id_column)
+        variables, spectral_block, segments = spectral_columns(variables, axis, recipe.ranges)
     keep = _excluded_mask(labels, recipe.excluded_samples, warnings)
     values = _numeric_block(table.frame, variables, None if keep.all() else keep)
     labels, positions = labels[keep], np.flatnonzero(keep)
+    input_variables, steps = None, None
+    if recipe.row_correction != "none" or recipe.savgol is not None:
+        _require_shape(values.shape[0], len(variables), recipe)
+        # Under "drop", samples with gaps leave the model, so they stay out of MSC's reference too.
+        reference_rows = ~np.isnan(values).any(axis=1) if recipe.missing == "drop" else None
+        values, steps = fit_spectral_steps(
+            values, variables, axis, spectral_block, segments, recipe.row_correction, recipe.savgol, labels,
+            reference_rows,
+        )
+        input_variables = variables
     transforms = tuple(recipe.transform_for(v) for v in variables)
-    _apply_transforms(values, variables, transforms, labels)
+    apply_transforms(values, variables, transforms, labels)
 
     values, labels, positions, dropped_samples, imputed = _handle_missing(
         values, labels, positions, variables, recipe, warnings
@@ -226,7 +330,7 @@ def prepare(table, recipe: Recipe) -> PreparedData:
         _require_shape(values.shape[0], len(variables), recipe)
     values -= centre
     values /= scale
-    preprocessor = Preprocessor(variables, transforms, centre, scale, recipe)
+    preprocessor = Preprocessor(variables, transforms, centre, scale, recipe, input_variables, steps)
     return PreparedData(
         matrix=values,
         variables=variables,
@@ -252,6 +356,17 @@ def _resolve_id_column(table, recipe: Recipe) -> str | None:
             f"Columns are: {_short_list(table.frame.columns)}."
         )
     return recipe.id_column
+
+
+def _required_axis(table, id_column: str | None):
+    axis = table_axis(table, id_column)
+    if axis is None:
+        raise OrdinateError(
+            "Variable ranges, SNV, MSC and Savitzky–Golay work along a variable axis: numeric columns named by "
+            "their position, such as 1100, 1102, … or '4000 cm-1' (at least 10 of them, and 90 % of the numeric "
+            "columns). The columns of this data are not named that way."
+        )
+    return axis
 
 
 def _labels(table, id_column: str | None) -> list[str]:
@@ -318,49 +433,6 @@ def _numeric_block(frame: pd.DataFrame, variables, rows: np.ndarray | None = Non
     except (TypeError, ValueError) as error:
         raise OrdinateError(f"Some chosen variables hold text rather than numbers ({error}).") from error
     return block
-
-
-def _apply_transforms(values: np.ndarray, variables, transforms, labels) -> None:
-    for j, (variable, transform) in enumerate(zip(variables, transforms)):
-        if transform == "none":
-            continue
-        column = values[:, j]
-        bad = _domain_violations(column, transform)
-        if bad.any():
-            first = int(np.flatnonzero(bad)[0])
-            where = f" (first at sample '{labels[first]}': {column[first]:g})" if labels is not None else ""
-            raise OrdinateError(
-                f"Cannot apply {transform} to '{variable}': {int(bad.sum())} value(s) are not "
-                f"{_domain_words(transform)}{where}. "
-                "Choose another transform for this variable or fix the values."
-            )
-        with np.errstate(invalid="ignore", divide="ignore"):
-            values[:, j] = {"log10": np.log10, "ln": np.log, "log1p": np.log1p, "sqrt": np.sqrt}[transform](column)
-
-
-def _domain_reasons(values: np.ndarray, variables, transforms) -> dict[int, str]:
-    """For each row with a value its transform cannot take, which values and why."""
-    reasons: dict[int, list[str]] = {}
-    for j, (variable, transform) in enumerate(zip(variables, transforms)):
-        if transform == "none":
-            continue
-        for row in np.flatnonzero(_domain_violations(values[:, j], transform)):
-            reasons.setdefault(int(row), []).append(
-                f"'{variable}' = {values[row, j]:g} is not {_domain_words(transform)} ({transform})")
-    return {row: "; ".join(parts) for row, parts in sorted(reasons.items())}
-
-
-def _domain_words(transform: str) -> str:
-    return "greater than -1" if transform == "log1p" else ("zero or more" if transform == "sqrt" else "greater than zero")
-
-
-def _domain_violations(column: np.ndarray, transform: str) -> np.ndarray:
-    finite = np.isfinite(column)
-    if transform in ("log10", "ln"):
-        return finite & (column <= 0)
-    if transform == "log1p":
-        return finite & (column <= -1)
-    return finite & (column < 0)
 
 
 def _handle_missing(values, labels, positions, variables, recipe: Recipe, warnings):

@@ -27,6 +27,8 @@ _CLI_WORDS = (
     ("Include more numeric columns.", "Exclude fewer columns (--exclude-columns)."),
     ("Choose another transform for this variable or fix the values.",
      "Give this variable another --transform, or fix the values."),
+    ("Leave such samples out, or change the spectral settings.",
+     "Leave such samples out (--exclude-samples), or change --ranges, --row-correction or --savgol."),
 )
 
 
@@ -60,6 +62,16 @@ def _parser() -> argparse.ArgumentParser:
 def _add_analyze(commands) -> None:
     cmd = commands.add_parser("analyze", help="fit PCA to a CSV/TSV file and print the variance table")
     cmd.add_argument("data", type=Path, help="CSV or TSV file of samples (rows) by variables (columns)")
+    _add_layout(cmd)
+    cmd.add_argument("--ranges", metavar="LO-HI,...",
+                     help="keep only these ranges of the variable axis, e.g. 1100-1700,2000-2400 "
+                          "(needs column names that are positions; default: the whole axis)")
+    cmd.add_argument("--row-correction", choices=("snv", "msc", "none"), default="none",
+                     help="correct each sample's spectrum: snv (standard normal variate) or msc "
+                          "(multiplicative scatter correction against the mean spectrum); default none")
+    cmd.add_argument("--savgol", metavar="WINDOW,ORDER,DERIV",
+                     help="Savitzky–Golay filter along the axis after row correction, e.g. 15,2,1: odd window, "
+                          "polynomial order, derivative 0-2 (default: no filter)")
     cmd.add_argument("--scaling", choices=("none", "unit", "pareto", "range"), default="unit")
     cmd.add_argument("--centring", "--centering", dest="centring", choices=("mean", "none"), default="mean")
     cmd.add_argument("--components", default="auto", help="number of components K, or 'auto' (default)")
@@ -80,9 +92,16 @@ def _add_project(commands) -> None:
     cmd = commands.add_parser("project", help="score new samples against a saved reference model")
     cmd.add_argument("model", type=Path, help="model JSON written by `ordinate analyze --model`")
     cmd.add_argument("data", type=Path, help="CSV or TSV file of new samples")
+    _add_layout(cmd)
     cmd.add_argument("--confidence", type=float, help="confidence for limits (default: the model's)")
     cmd.add_argument("--json", type=Path, metavar="OUT", help="write scores, T² and Q as JSON")
     cmd.set_defaults(run=_run_project)
+
+
+def _add_layout(cmd) -> None:
+    cmd.add_argument("--rows-are", choices=("samples", "variables"), default="samples",
+                     help="samples (default): one sample per row; variables: one variable per row, the first "
+                          "column naming the variables and the header naming the samples")
 
 
 def _add_serve(commands) -> None:
@@ -133,12 +152,12 @@ def _run_report(args) -> int:
 
 
 def _run_analyze(args) -> int:
-    from webapp.analysis.ingest import read_table
     from webapp.analysis.model_io import model_from_analysis, save_model
     from webapp.analysis.pipeline import analyse, analysis_report
     from webapp.analysis.recipe import Recipe
+    from webapp.analysis.spectra import parse_ranges
 
-    table = read_table(args.data)
+    table = _read(args)
     _check_column(table, args.group_column, "group")
     recipe = Recipe(
         variables=_chosen_variables(table, args.exclude_columns, args.id_column),
@@ -148,6 +167,9 @@ def _run_analyze(args) -> int:
         centring=args.centring,
         scaling=args.scaling,
         id_column=args.id_column,
+        ranges=parse_ranges(args.ranges) if args.ranges else (),
+        row_correction=args.row_correction,
+        savgol=_parse_savgol(args.savgol),
     )
     analysis = analyse(table, recipe, args.components, args.confidence)
     report = analysis_report(analysis, table)
@@ -164,11 +186,10 @@ def _run_analyze(args) -> int:
 
 
 def _run_project(args) -> int:
-    from webapp.analysis.ingest import read_table
     from webapp.analysis.model_io import load_model, project_table, projection_report
 
     model = load_model(args.model)
-    projection = project_table(model, read_table(args.data), args.confidence)
+    projection = project_table(model, _read(args), args.confidence)
     report = projection_report(model, projection)
     print(format_projection(report))
     if args.json:
@@ -195,6 +216,26 @@ def _run_serve(args) -> int:
 
 
 # --- helpers -----------------------------------------------------------------
+
+
+def _read(args):
+    from webapp.analysis.ingest import read_table, transpose_table
+
+    table = read_table(args.data)
+    if args.rows_are == "variables":
+        table = transpose_table(table, f"'{args.data.name}'")
+    return table
+
+
+def _parse_savgol(text: str | None) -> tuple[int, int, int] | None:
+    if text is None:
+        return None
+    parts = [part.strip() for part in text.split(",")]
+    if len(parts) != 3 or not all(part.isdigit() for part in parts):
+        raise OrdinateError(
+            f"Write --savgol as WINDOW,ORDER,DERIV, three whole numbers such as 15,2,1; got '{text}'."
+        )
+    return tuple(int(part) for part in parts)
 
 
 def _check_column(table, column: str | None, role: str) -> None:

@@ -12,7 +12,7 @@ column 0 is the sample's label (see :mod:`webapp.figures.scores`);
 
 from webapp.figures._points import WEBGL_THRESHOLD, BatchPoints, point_label, point_labels
 from webapp.figures.diagnostics import CAUTION, contributions_figure, diagnostics_figure, flagged_samples
-from webapp.figures.loadings import correlation_circle_figure, loadings_bar_figure
+from webapp.figures.loadings import correlation_circle_figure, loadings_bar_figure, loadings_line_figure
 from webapp.figures.palette import (
     ALL_SAMPLES_GROUP,
     MARKER_SYMBOLS,
@@ -70,6 +70,7 @@ __all__ = [
     "group_styles",
     "loading_arrows",
     "loadings_bar_figure",
+    "loadings_line_figure",
     "point_label",
     "point_labels",
     "scores_figure",

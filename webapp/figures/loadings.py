@@ -1,4 +1,9 @@
-"""Loadings of one component as bars, and the correlation circle of two components.
+"""Loadings of one component as bars or, on a variable axis, as a line; and the correlation circle.
+
+On spectra (a variable axis, :mod:`webapp.analysis.variable_axis`) the loadings
+of a component are a *loading spectrum*: one line against the axis positions,
+broken where the chosen variables leave a gap (between ranges), so that bands
+can be read as in the spectra themselves.
 
 The correlation circle draws, for each variable, the arrow (r_x, r_y) of its
 correlations with the two components. Every arrow lies inside the unit
@@ -31,7 +36,7 @@ from webapp.figures.theme import (
     style_for,
 )
 
-__all__ = ["loadings_bar_figure", "correlation_circle_figure", "CIRCLE_RANGE"]
+__all__ = ["loadings_bar_figure", "loadings_line_figure", "correlation_circle_figure", "CIRCLE_RANGE"]
 
 #: Both axes of the correlation circle span this range.
 CIRCLE_RANGE = (-1.1, 1.1)
@@ -93,6 +98,55 @@ def loadings_bar_figure(
     fig.layout.annotations[0].update(x=1.0, xanchor="right", align="right")
     if len(names) > 20:
         fig.update_layout(height=int(min(160 + 20 * len(names), 4000)))
+    return fig
+
+
+def loadings_line_figure(
+    *,
+    positions: np.ndarray,
+    loadings: np.ndarray,
+    breaks_after: Sequence[int] = (),
+    component: int,
+    explained_ratio: float,
+    axis_label: str,
+    reversed_axis: bool = False,
+    left_out: Sequence[str] = (),
+    presentation: bool = False,
+) -> go.Figure:
+    """The loadings of one component along the variable axis, as one line.
+
+    ``positions`` and ``loadings`` are in axis order; the line is broken after
+    each index in ``breaks_after`` (a gap between kept ranges). ``left_out``
+    names variables that are not on the axis (not drawn; a note says so).
+    Loadings are sent as float32 (half the payload), positions as float64 so
+    that hover shows them exactly.
+    """
+    style = style_for(presentation)
+    x = np.asarray(positions, dtype=np.float64)
+    y = as_float32(loadings, "loadings", x.size)
+    if x.size == 0:
+        raise OrdinateError("There are no variables on the axis to show.")
+    cuts = np.asarray(sorted(breaks_after), dtype=int) + 1
+    if cuts.size:  # a NaN between segments breaks the line (no line across a gap)
+        x = np.insert(x, cuts, np.nan)
+        y = np.insert(y, cuts, np.float32(np.nan))
+    notes = ["Loading spectrum: one point per variable on the axis."]
+    if left_out:
+        shown = ", ".join(f"'{escape_text(v)}'" for v in left_out[:5]) + (" and others" if len(left_out) > 5 else "")
+        notes.append(f"Not on the axis, so not drawn here: {shown}.")
+    fig = new_figure(
+        style,
+        title=f"Loadings on PC{int(component)} · {percent(explained_ratio)}",
+        notes=notes,
+        xaxis={**axis_style(axis_label, zero_line=False), **({"autorange": "reversed"} if reversed_axis else {})},
+        yaxis={**axis_style("Loading"), "zeroline": True},
+        showlegend=False,
+    )
+    fig.add_trace(go.Scatter(
+        x=x, y=y, mode="lines", connectgaps=False, name=f"PC{int(component)}",
+        line=dict(color=POSITIVE_COLOUR, width=style.line_width),
+        hovertemplate="position %{x}<br>loading %{y:.4f}<extra></extra>",
+    ))
     return fig
 
 

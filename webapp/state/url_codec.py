@@ -26,6 +26,11 @@ from webapp.state.view_state import (
     MIN_CONFIDENCE,
     MISSING_POLICIES,
     NO_COLOUR,
+    MAX_RANGES,
+    MAX_SAVGOL_DERIVATIVE,
+    MAX_SAVGOL_ORDER,
+    MAX_SAVGOL_WINDOW,
+    ROW_CORRECTIONS,
     SCALINGS,
     TRANSFORMS,
     _TOKEN_PATTERN,
@@ -219,6 +224,54 @@ def _write_sigma(levels: tuple[float, ...]) -> str:
     return ",".join(_write_number(level) for level in levels)
 
 
+_SIGNED_DECIMAL = rf"-?{_DECIMAL_PATTERN.pattern}"
+_RANGE_PATTERN = re.compile(rf"({_SIGNED_DECIMAL})-({_SIGNED_DECIMAL})")
+
+
+def _read_ranges(text: str) -> tuple[tuple[float, float], ...]:
+    expected = (
+        f"up to {MAX_RANGES} ranges LOW-HIGH of the variable axis, separated by commas, such as "
+        "1100-1700,2000-2400, or nothing for the whole axis"
+    )
+    if text.strip() == "":
+        return ()
+    pairs = []
+    for item in text.split(","):
+        match = _RANGE_PATTERN.fullmatch(item.strip())
+        if match is None:
+            raise _Unusable(expected)
+        pairs.append((float(match.group(1)), float(match.group(2))))
+    try:
+        return ViewState(ranges=pairs).ranges
+    except ViewStateError:
+        raise _Unusable(expected) from None
+
+
+def _write_ranges(ranges: tuple[tuple[float, float], ...]) -> str:
+    return ",".join(f"{_write_number(low)}-{_write_number(high)}" for low, high in ranges)
+
+
+def _read_savgol(text: str) -> tuple[int, int, int] | None:
+    expected = (
+        f"'off', or WINDOW,ORDER,DERIVATIVE such as 15,2,1: an odd window from 3 to {MAX_SAVGOL_WINDOW} "
+        f"above the polynomial order (0 to {MAX_SAVGOL_ORDER}), a derivative from 0 to {MAX_SAVGOL_DERIVATIVE} "
+        "and at most the order"
+    )
+    if text == "off":
+        return None
+    parts = text.split(",")
+    if len(parts) != 3 or not all(_WHOLE_NUMBER_PATTERN.fullmatch(p.strip()) for p in parts):
+        raise _Unusable(expected)
+    try:
+        return ViewState(savgol=tuple(int(p) for p in parts)).savgol
+    except ViewStateError:
+        raise _Unusable(expected) from None
+
+
+def _write_savgol(value: tuple[int, int, int] | None) -> str:
+    return "off" if value is None else ",".join(map(str, value))
+
+
 def _read_label(text: str) -> str:
     return text  # empty values are dropped before reading (they mark an empty list)
 
@@ -244,6 +297,9 @@ PARAMETERS: tuple[UrlParameter, ...] = (
     UrlParameter("centre", "centring", "recipe", _read_choice(CENTRINGS), str),
     UrlParameter("scale", "scaling", "recipe", _read_choice(SCALINGS), str),
     UrlParameter("id", "id_column", "recipe", _read_id_column, _write_id_column),
+    UrlParameter("rng", "ranges", "recipe", _read_ranges, _write_ranges),
+    UrlParameter("rowc", "row_correction", "recipe", _read_choice(ROW_CORRECTIONS), str),
+    UrlParameter("sg", "savgol", "recipe", _read_savgol, _write_savgol),
     UrlParameter("k", "components", "diagnostics", _read_components, lambda k: "auto" if k is None else str(k)),
     UrlParameter("conf", "confidence", "diagnostics", _read_confidence, _write_number),
     UrlParameter("x", "pc_x", "drawing", _read_whole(1, MAX_PC), str),

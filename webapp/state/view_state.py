@@ -8,6 +8,7 @@ field and raises :class:`ViewStateError`); its URL form lives in
 from __future__ import annotations
 
 import dataclasses
+import math
 import numbers
 import re
 from collections.abc import Mapping
@@ -22,6 +23,11 @@ __all__ = [
     "CENTRINGS",
     "SCALINGS",
     "TRANSFORMS",
+    "ROW_CORRECTIONS",
+    "MAX_RANGES",
+    "MAX_SAVGOL_WINDOW",
+    "MAX_SAVGOL_ORDER",
+    "MAX_SAVGOL_DERIVATIVE",
     "ELLIPSE_MODES",
     "BIPLOT_SCALINGS",
     "SLIDE_FIGURES",
@@ -46,6 +52,7 @@ ELLIPSE_MODES: tuple[str, ...] = ("group", "all")
 BIPLOT_SCALINGS: tuple[str, ...] = ("correlation", "distance")
 # The figure a saved view shows as a slide, filling the screen.
 SLIDE_FIGURES: tuple[str, ...] = ("scores", "variance", "diagnostics", "loadings")
+ROW_CORRECTIONS: tuple[str, ...] = ("none", "snv", "msc")
 
 #: ``ViewState.colour_by`` value meaning "do not colour the points" (URL: ``colour=none``).
 NO_COLOUR = ""
@@ -59,6 +66,10 @@ MAX_SLIDE = 1000
 MAX_ARROWS = 200  # most arrows (and correlation-circle names) a link may ask for
 PAGE_ARROWS = 20  # arrows drawn by default on the dashboard ...
 SLIDE_ARROWS = 10  # ... and on a slide, read from the back of a room
+MAX_RANGES = 20  # variable ranges a link may hold
+MAX_SAVGOL_WINDOW = 999  # the engine also checks the window against the data
+MAX_SAVGOL_ORDER = 6
+MAX_SAVGOL_DERIVATIVE = 2
 
 _TOKEN_PATTERN = re.compile(r"[A-Za-z0-9_-]{16,64}")
 
@@ -166,6 +177,47 @@ def _check_transforms(values: Any) -> tuple[tuple[str, str], ...]:
     return tuple(sorted((v, t) for v, t in chosen.items() if t != "none"))
 
 
+def _check_ranges(values: Any) -> tuple[tuple[float, float], ...]:
+    """Sorted (low, high) pairs with overlapping ones merged: the union is what selects."""
+    pairs = []
+    for pair in values:
+        try:
+            low, high = pair
+        except (TypeError, ValueError):
+            raise ViewStateError(f"ranges must hold (low, high) pairs, got {pair!r}.") from None
+        for value in (low, high):
+            if isinstance(value, bool) or not isinstance(value, numbers.Real) or not math.isfinite(value):
+                raise ViewStateError(f"a range must be two finite numbers, got {pair!r}.")
+        pairs.append((float(min(low, high)), float(max(low, high))))
+    merged: list[tuple[float, float]] = []
+    for low, high in sorted(pairs):
+        if merged and low <= merged[-1][1]:
+            merged[-1] = (merged[-1][0], max(high, merged[-1][1]))
+        else:
+            merged.append((low, high))
+    if len(merged) > MAX_RANGES:
+        raise ViewStateError(f"at most {MAX_RANGES} variable ranges are allowed, got {len(merged)}.")
+    return tuple(merged)
+
+
+def _check_savgol(value: Any) -> tuple[int, int, int] | None:
+    """(window, order, derivative): window odd, 3 to MAX_SAVGOL_WINDOW, above the order; derivative at most the order."""
+    if value is None:
+        return None
+    try:
+        window, order, derivative = value
+    except (TypeError, ValueError):
+        raise ViewStateError(f"savgol must be None or (window, order, derivative), got {value!r}.") from None
+    window = _check_int(window, 3, MAX_SAVGOL_WINDOW, "the Savitzky–Golay window")
+    order = _check_int(order, 0, MAX_SAVGOL_ORDER, "the Savitzky–Golay order")
+    derivative = _check_int(derivative, 0, MAX_SAVGOL_DERIVATIVE, "the Savitzky–Golay derivative")
+    if window % 2 == 0 or order >= window or derivative > order:
+        raise ViewStateError(
+            f"savgol needs an odd window above the order and a derivative at most the order, got {value!r}."
+        )
+    return window, order, derivative
+
+
 # --------------------------------------------------------------------------------------
 # The state
 # --------------------------------------------------------------------------------------
@@ -202,6 +254,9 @@ class ViewState:
     centring: str = "mean"
     scaling: str = "unit"
     id_column: str | None = None
+    ranges: tuple[tuple[float, float], ...] = ()  # kept ranges of the variable axis (spectra)
+    row_correction: str = "none"
+    savgol: tuple[int, int, int] | None = None  # Savitzky–Golay window, polynomial order, derivative
     # diagnostics: recomputed cheaply, no refit
     components: int | None = None
     confidence: float = 0.95
@@ -243,6 +298,9 @@ class ViewState:
             "centring": _check_choice(self.centring, CENTRINGS, "centring"),
             "scaling": _check_choice(self.scaling, SCALINGS, "scaling"),
             "id_column": _check_optional_text(self.id_column, "id_column"),
+            "ranges": _check_ranges(self.ranges),
+            "row_correction": _check_choice(self.row_correction, ROW_CORRECTIONS, "row_correction"),
+            "savgol": _check_savgol(self.savgol),
             "components": None if self.components is None else _check_int(self.components, 1, MAX_PC, "components"),
             "confidence": _check_confidence(self.confidence),
             "pc_x": _check_int(self.pc_x, 1, MAX_PC, "pc_x"),
@@ -292,6 +350,9 @@ class ViewState:
             self.centring,
             self.scaling,
             self.id_column,
+            self.ranges,
+            self.row_correction,
+            self.savgol,
         )
 
     def diagnostics_key(self) -> tuple:

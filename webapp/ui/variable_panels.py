@@ -9,10 +9,13 @@ import numpy as np
 import plotly.graph_objects as go
 
 from webapp.analysis.diagnostics import q_residual_row, t2_contributions
+from webapp.analysis.variable_axis import MIN_AXIS_VARIABLES, table_axis
 from webapp.figures import (
     axis_title,
     contributions_figure,
     correlation_circle_figure,
+    loadings_bar_figure,
+    loadings_line_figure,
 )
 from webapp.state import ViewState
 from webapp.ui.scores_panel import BatchScores
@@ -58,6 +61,28 @@ def contributions_panel(state: ViewState, fitted, diagnostics, batch: BatchScore
         ]),
         dcc.Graph(figure=figure, config=GRAPH_CONFIG, className="contributions-graph"),
     ])
+
+
+def loadings_panel(table, fitted, component: int, presentation: bool) -> go.Figure:
+    """Loadings of one component: a line along the variable axis on spectra, bars otherwise."""
+    pca, variables = fitted.pca, fitted.prepared.variables
+    loadings = pca.loadings[:, component - 1]
+    ratio = float(pca.explained_variance_ratio[component - 1])
+    axis = table_axis(table, fitted.prepared.preprocessor.recipe.id_column)
+    index = {} if axis is None else {name: i for i, name in enumerate(axis.names)}
+    on_axis = [j for j, v in enumerate(variables) if v in index]
+    if len(on_axis) < MIN_AXIS_VARIABLES:
+        return loadings_bar_figure(variables=variables, loadings=loadings, component=component,
+                                   explained_ratio=ratio, presentation=presentation)
+    on_axis.sort(key=lambda j: index[variables[j]])
+    axis_index = np.array([index[variables[j]] for j in on_axis])
+    return loadings_line_figure(
+        positions=axis.positions[axis_index], loadings=loadings[on_axis],
+        breaks_after=np.flatnonzero(np.diff(axis_index) != 1).tolist(),
+        component=component, explained_ratio=ratio, axis_label=axis.label,
+        reversed_axis=not axis.increasing,
+        left_out=[v for v in variables if v not in index], presentation=presentation,
+    )
 
 
 def circle_panel(fitted, pc_x: int, pc_y: int, presentation: bool, max_arrows: int) -> go.Figure:

@@ -17,11 +17,11 @@ import plotly.graph_objects as go
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.pipeline import diagnose
 from webapp.analysis.recipe import Recipe
+from webapp.analysis.variable_axis import table_axis
 from webapp.figures import (
     BatchPoints,
     diagnostics_figure,
     flagged_samples,
-    loadings_bar_figure,
     variance_figure,
     variance_table_rows,
     variance_table_tsv,
@@ -57,6 +57,7 @@ from webapp.ui.summary_panels import (  # noqa: F401  (part of this module's int
 )
 from webapp.ui.variable_panels import (  # noqa: F401  (part of this module's interface)
     circle_panel,
+    loadings_panel,
     contributions_panel,
     variable_correlations,
 )
@@ -217,6 +218,13 @@ def recipe_for(state: ViewState, table) -> tuple[Recipe, tuple[str, ...]]:
     lacking = [v for v, _ in state.transforms if v not in numeric]
     if lacking:
         notices.append(f"Ignored the transforms of variable(s) this data lacks: {', '.join(lacking)}.")
+    ranges, row_correction, savgol = state.ranges, state.row_correction, state.savgol
+    if (ranges or row_correction != "none" or savgol is not None) and table_axis(table, label_column) is None:
+        notices.append(
+            "Ignored the spectral settings of the link (variable ranges, row correction, Savitzky–Golay): "
+            "this data has no variable axis (numeric column names that are positions, such as 1100, 1102, …)."
+        )
+        ranges, row_correction, savgol = (), "none", None
     recipe = Recipe(
         variables=variables,
         excluded_samples=state.excluded,
@@ -225,6 +233,9 @@ def recipe_for(state: ViewState, table) -> tuple[Recipe, tuple[str, ...]]:
         centring=state.centring,
         scaling=state.scaling,
         id_column=id_column,
+        ranges=ranges,
+        row_correction=row_correction,
+        savgol=savgol,
     )
     return recipe, tuple(notices)
 
@@ -323,10 +334,8 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
                 fitted.prepared.sample_labels, diagnostics.t2, diagnostics.q, diagnostics.t2_limit,
                 diagnostics.q_limit)),
             "contributions": lambda: contributions_panel(state, fitted, diagnostics, batch),
-            "loadings": lambda: draw(keys["loadings"], lambda: loadings_bar_figure(
-                variables=fitted.prepared.variables, loadings=pca.loadings[:, loading_pc - 1], component=loading_pc,
-                explained_ratio=float(pca.explained_variance_ratio[loading_pc - 1]), presentation=state.present,
-            )),
+            "loadings": lambda: draw(keys["loadings"], lambda: loadings_panel(
+                table, fitted, loading_pc, state.present)),
             "circle": lambda: draw(keys["circle"], lambda: circle_panel(fitted, pc_x, pc_y, state.present,
                                                                             state.arrows_shown)),
         }),

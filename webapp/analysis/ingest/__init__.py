@@ -116,6 +116,7 @@ from webapp.analysis.ingest.source import (
     reject_empty_or_binary_start,
 )
 from webapp.analysis.ingest.table import DEFAULT_MAX_BYTES, DEFAULT_MAX_CELL_CHARS, MISSING_MARKERS, Table
+from webapp.analysis.ingest.transpose import transpose_table
 
 __all__ = [
     "DEFAULT_MAX_BYTES",
@@ -124,6 +125,7 @@ __all__ = [
     "OrdinateError",
     "Table",
     "read_table",
+    "transpose_table",
 ]
 
 

@@ -1,0 +1,53 @@
+"""Per-variable transforms of the recipe (log10, ln, log1p, sqrt) and the values each can take."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from webapp.analysis.errors import OrdinateError
+
+_FUNCTIONS = {"log10": np.log10, "ln": np.log, "log1p": np.log1p, "sqrt": np.sqrt}
+
+
+def apply_transforms(values: np.ndarray, variables, transforms, labels) -> None:
+    """Transform the columns of ``values`` in place; raises naming the first sample outside a transform's domain."""
+    for j, (variable, transform) in enumerate(zip(variables, transforms)):
+        if transform == "none":
+            continue
+        column = values[:, j]
+        bad = _domain_violations(column, transform)
+        if bad.any():
+            first = int(np.flatnonzero(bad)[0])
+            where = f" (first at sample '{labels[first]}': {column[first]:g})" if labels is not None else ""
+            raise OrdinateError(
+                f"Cannot apply {transform} to '{variable}': {int(bad.sum())} value(s) are not "
+                f"{_domain_words(transform)}{where}. "
+                "Choose another transform for this variable or fix the values."
+            )
+        with np.errstate(invalid="ignore", divide="ignore"):
+            values[:, j] = _FUNCTIONS[transform](column)
+
+
+def domain_reasons(values: np.ndarray, variables, transforms) -> dict[int, str]:
+    """For each row with a value its transform cannot take, which values and why."""
+    reasons: dict[int, list[str]] = {}
+    for j, (variable, transform) in enumerate(zip(variables, transforms)):
+        if transform == "none":
+            continue
+        for row in np.flatnonzero(_domain_violations(values[:, j], transform)):
+            reasons.setdefault(int(row), []).append(
+                f"'{variable}' = {values[row, j]:g} is not {_domain_words(transform)} ({transform})")
+    return {row: "; ".join(parts) for row, parts in sorted(reasons.items())}
+
+
+def _domain_words(transform: str) -> str:
+    return "greater than -1" if transform == "log1p" else ("zero or more" if transform == "sqrt" else "greater than zero")
+
+
+def _domain_violations(column: np.ndarray, transform: str) -> np.ndarray:
+    finite = np.isfinite(column)
+    if transform in ("log10", "ln"):
+        return finite & (column <= 0)
+    if transform == "log1p":
+        return finite & (column <= -1)
+    return finite & (column < 0)
