@@ -207,14 +207,14 @@ def _covariance_eigh(X: np.ndarray, offset: np.ndarray | None, small_offset: boo
         cross = X.T @ X
         cross -= X.shape[0] * np.outer(offset, offset)
     else:
-        cross = _cross_product(X, offset)
+        cross = centred_cross_product(X, offset)
     _check_finite_product(cross)
     trace = float(np.trace(cross)) / (X.shape[0] - 1)
     values, vectors = scipy.linalg.eigh(cross, overwrite_a=True, check_finite=False, driver="evd")
     return _Spectrum(values[::-1] / (X.shape[0] - 1), vectors[:, ::-1], trace, None)
 
 
-def _cross_product(X: np.ndarray, offset: np.ndarray | None) -> np.ndarray:
+def centred_cross_product(X: np.ndarray, offset: np.ndarray | None) -> np.ndarray:
     """XᵀX of the centred data, centring one cache-sized block of rows at a time.
 
     Avoids materialising a centred copy of X (one write and one read of the
