@@ -38,6 +38,7 @@ TRANSFORMS = ("none", "log10", "ln", "log1p", "sqrt")
 MISSING_STRATEGIES = ("drop", "mean", "iterative")
 CENTRINGS = ("mean", "none")
 SCALINGS = ("unit", "none", "pareto", "range")
+TRANSFORM_FUNCTIONS = {"log10": np.log10, "ln": np.log, "log1p": np.log1p, "sqrt": np.sqrt}
 RECIPE_VERSION = 1
 MIN_SAMPLES = 3
 MIN_VARIABLES = 2
@@ -209,7 +210,7 @@ def prepare(table, recipe: Recipe) -> PreparedData:
     values, labels, positions, dropped_samples, imputed = _handle_missing(
         values, labels, positions, variables, recipe, warnings
     )
-    _require_shape(values.shape[0], len(variables), recipe)
+    require_shape(values.shape[0], len(variables), recipe)
     centre = values.mean(axis=0) if recipe.centring == "mean" else np.zeros(len(variables))
     scale, zero = scale_divisors(values, recipe.scaling)
     dropped_variables = tuple(v for v, z in zip(variables, zero) if z)
@@ -223,7 +224,7 @@ def prepare(table, recipe: Recipe) -> PreparedData:
         variables = tuple(v for v, z in zip(variables, zero) if not z)
         transforms = tuple(t for t, z in zip(transforms, zero) if not z)
         imputed = imputed[:, kept] if imputed is not None else None
-        _require_shape(values.shape[0], len(variables), recipe)
+        require_shape(values.shape[0], len(variables), recipe)
     values -= centre
     values /= scale
     preprocessor = Preprocessor(variables, transforms, centre, scale, recipe)
@@ -325,17 +326,17 @@ def _apply_transforms(values: np.ndarray, variables, transforms, labels) -> None
         if transform == "none":
             continue
         column = values[:, j]
-        bad = _domain_violations(column, transform)
+        bad = domain_violations(column, transform)
         if bad.any():
             first = int(np.flatnonzero(bad)[0])
             where = f" (first at sample '{labels[first]}': {column[first]:g})" if labels is not None else ""
             raise OrdinateError(
                 f"Cannot apply {transform} to '{variable}': {int(bad.sum())} value(s) are not "
-                f"{_domain_words(transform)}{where}. "
+                f"{domain_words(transform)}{where}. "
                 "Choose another transform for this variable or fix the values."
             )
         with np.errstate(invalid="ignore", divide="ignore"):
-            values[:, j] = {"log10": np.log10, "ln": np.log, "log1p": np.log1p, "sqrt": np.sqrt}[transform](column)
+            values[:, j] = TRANSFORM_FUNCTIONS[transform](column)
 
 
 def _domain_reasons(values: np.ndarray, variables, transforms) -> dict[int, str]:
@@ -344,17 +345,17 @@ def _domain_reasons(values: np.ndarray, variables, transforms) -> dict[int, str]
     for j, (variable, transform) in enumerate(zip(variables, transforms)):
         if transform == "none":
             continue
-        for row in np.flatnonzero(_domain_violations(values[:, j], transform)):
+        for row in np.flatnonzero(domain_violations(values[:, j], transform)):
             reasons.setdefault(int(row), []).append(
-                f"'{variable}' = {values[row, j]:g} is not {_domain_words(transform)} ({transform})")
+                f"'{variable}' = {values[row, j]:g} is not {domain_words(transform)} ({transform})")
     return {row: "; ".join(parts) for row, parts in sorted(reasons.items())}
 
 
-def _domain_words(transform: str) -> str:
+def domain_words(transform: str) -> str:
     return "greater than -1" if transform == "log1p" else ("zero or more" if transform == "sqrt" else "greater than zero")
 
 
-def _domain_violations(column: np.ndarray, transform: str) -> np.ndarray:
+def domain_violations(column: np.ndarray, transform: str) -> np.ndarray:
     finite = np.isfinite(column)
     if transform in ("log10", "ln"):
         return finite & (column <= 0)
@@ -415,7 +416,7 @@ def _extrapolation_note(variables, outside_range) -> str | None:
     )
 
 
-def _require_shape(n_samples: int, n_variables: int, recipe: Recipe) -> None:
+def require_shape(n_samples: int, n_variables: int, recipe: Recipe) -> None:
     if n_samples < MIN_SAMPLES:
         raise OrdinateError(
             f"PCA needs at least {MIN_SAMPLES} samples; only {n_samples} remain after exclusions and missing-value handling."
