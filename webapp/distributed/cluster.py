@@ -44,7 +44,7 @@ def dask_client(scheduler: str | None = None, workers: int | None = None, *, pro
         n_workers=workers or default_workers(),
         threads_per_worker=1,
         processes=processes,
-        dashboard_address=None,
+        dashboard_address=":0",  # any free port: several clusters (and other services) may share the machine
         silence_logs=logging.ERROR,
     )
     try:
