@@ -47,6 +47,9 @@ class Plan:
     shift: np.ndarray | None = None
     sample_rows: int = 20_000
     seed: int = 0
+    # Rows whose key is at or above this cannot be among the sample_rows smallest
+    # keys (with overwhelming probability, see the engine); 1 keeps every candidate.
+    sample_threshold: float = 1.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -136,7 +139,8 @@ class Summary:
 def summarise(frame: pd.DataFrame, index: int, path: str, plan: Plan) -> Summary:
     prepared = prepare_piece(frame, index, path, plan, need_labels=False)
     keys = np.random.default_rng([plan.seed, index]).random(prepared.values.shape[0])
-    chosen = np.sort(np.argsort(keys, kind="stable")[: plan.sample_rows])
+    candidates = np.flatnonzero(keys < plan.sample_threshold)
+    chosen = np.sort(candidates[np.argsort(keys[candidates], kind="stable")[: plan.sample_rows]])
     where = np.column_stack([np.full(chosen.size, index), prepared.rows[chosen]]).astype(np.int64)
     return Summary(
         moments=block_moments(prepared.values, plan.shift),

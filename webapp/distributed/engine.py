@@ -55,6 +55,7 @@ class LongAnalysis:
     pieces: int
     files: int
     warnings: tuple[str, ...]
+    seconds: dict  # wall time of each pass and of the fit on this machine
 
     @property
     def variables(self) -> tuple[str, ...]:
@@ -93,16 +94,20 @@ def analyse_long(source: Source, recipe: Recipe, client, *, components="auto", c
         row_offsets=source.row_offsets(),
         sample_rows=int(sample_rows),
         seed=int(seed),
+        sample_threshold=_sample_threshold(source, int(sample_rows)),
     )
     if plan.excluded and id_column is None and plan.row_offsets is None:
         plan = _replace(plan, row_offsets=_count_rows(source, client))
     plan = _replace(plan, shift=blocks.shift_from_head(source.head, plan))
     warnings: list[str] = []
+    clock = _Clock()
     if recipe.missing == "mean":
         plan = _replace(plan, fill=_observed_means(source, client, plan))
+        clock.lap("means")
     summary = _run(client, source, blocks.summarise, blocks.merge_summaries, (plan,), (plan.sample_rows,))
     offsets = np.concatenate([[0], np.cumsum([summary.read_rows[i] for i in range(len(source.pieces))])[:-1]])
     plan = _replace(plan, row_offsets=offsets.astype(np.int64))
+    clock.lap("moments")
     _note_rows(summary, plan, recipe, warnings)
 
     moments = summary.moments
@@ -130,8 +135,10 @@ def analyse_long(source: Source, recipe: Recipe, client, *, components="auto", c
                            fallback=advise_components(pca.eigenvalues, pca.total_variance, pca.n_variables))
     k = resolve_components(SimpleNamespace(pca=pca, advice=advice), components)
     limits = control_limits(pca, k, confidence)
+    clock.lap("eigendecomposition_and_advice")
     model = blocks.Model(kept, centre, scale, pca, k, limits[0], limits[1], keep_rows=n <= per_sample_limit)
     scored = _run(client, source, blocks.score, blocks.merge_scored, (plan, model), (model,))
+    clock.lap("scores")
     order = np.lexsort((scored.order[:, 1], scored.order[:, 0]))
     scored = blocks.Scored(scored.labels[order], None if scored.scores is None else scored.scores[order],
                            scored.t2[order], scored.q[order], scored.t2_over, scored.q_over, scored.order[order])
@@ -144,7 +151,21 @@ def analyse_long(source: Source, recipe: Recipe, client, *, components="auto", c
     preprocessor = Preprocessor(kept_variables, tuple(t for t, z in zip(plan.transforms, zero) if not z),
                                 centre, scale, recipe)
     return LongAnalysis(recipe, preprocessor, pca, advice, k, float(confidence), limits, scored, model.keep_rows,
-                        sample.shape[0], len(source.pieces), len(source.files), tuple(warnings))
+                        sample.shape[0], len(source.pieces), len(source.files), tuple(warnings), clock.laps)
+
+
+class _Clock:
+    def __init__(self):
+        import time
+
+        self._now = time.perf_counter
+        self._last = self._now()
+        self.laps: dict[str, float] = {}
+
+    def lap(self, name: str) -> None:
+        now = self._now()
+        self.laps[name] = now - self._last
+        self._last = now
 
 
 # --- passes ----------------------------------------------------------------------
@@ -174,6 +195,23 @@ def _run(client, source: Source, step, merge, step_args: tuple, merge_args: tupl
         ) from None
     except (OSError, MemoryError) as error:
         raise OrdinateError(f"The fit failed on the cluster ({error}).") from None
+
+
+def _sample_threshold(source: Source, sample_rows: int) -> float:
+    """A key bound that keeps about sample_rows + 6 standard deviations of rows, when the row count is known.
+
+    The sample is the rows with the smallest uniform keys; a piece need not
+    send rows whose key lies above this bound, which the sample_rows smallest
+    keys exceed with probability below 1e-9. Should it happen, the sample is
+    still a uniform random one, only smaller.
+    """
+    offsets = source.row_offsets()
+    if offsets is None:
+        return 1.0
+    total = int(offsets[-1]) + int(source.pieces[-1].rows)
+    if total <= sample_rows:
+        return 1.0
+    return min(1.0, (sample_rows + 6 * np.sqrt(sample_rows) + 10) / total)
 
 
 def _count_rows(source: Source, client) -> np.ndarray:
