@@ -66,7 +66,8 @@ class Prepared:
 
 def prepare_piece(frame: pd.DataFrame, index: int, path: str, plan: Plan, *, need_labels: bool) -> Prepared:
     n = len(frame)
-    labels = _labels(frame, index, plan) if (need_labels or plan.excluded or plan.id_column) else None
+    # Labels cost a Python string per row: made only where they are used.
+    labels = _labels(frame, index, plan) if (need_labels or plan.excluded) else None
     values = _numbers(frame, plan.variables, path)
     keep = np.ones(n, dtype=bool)
     found = frozenset()
@@ -83,8 +84,10 @@ def prepare_piece(frame: pd.DataFrame, index: int, path: str, plan: Plan, *, nee
         if plan.missing == "drop":
             bad = missing.any(axis=1)
             dropped = int(bad.sum())
-            first = tuple((index, int(r), None if labels is None else str(labels[i]))
-                          for i, r in zip(np.flatnonzero(bad)[:SHOWN_LABELS], rows[bad][:SHOWN_LABELS]))
+            shown = rows[bad][:SHOWN_LABELS]
+            named = (labels[bad][:SHOWN_LABELS] if labels is not None
+                     else _labels(frame, index, plan, shown) if plan.id_column else [None] * shown.size)
+            first = tuple((index, int(r), None if label is None else str(label)) for r, label in zip(shown, named))
             values, rows = values[~bad], rows[~bad]
             labels = None if labels is None else labels[~bad]
         elif plan.fill is not None:
@@ -201,7 +204,7 @@ class Scored:
 
 
 def score(frame: pd.DataFrame, index: int, path: str, plan: Plan, model: Model) -> Scored:
-    prepared = prepare_piece(frame, index, path, plan, need_labels=True)
+    prepared = prepare_piece(frame, index, path, plan, need_labels=model.keep_rows)
     X = prepared.values[:, model.kept]
     X -= model.centre
     X /= model.scale
@@ -214,7 +217,8 @@ def score(frame: pd.DataFrame, index: int, path: str, plan: Plan, model: Model) 
     ratio = np.maximum(t2 / model.t2_limit, q / model.q_limit)
     top = np.flatnonzero(ratio > 1)
     top = top[np.argsort(-ratio[top], kind="stable")[: model.top]]
-    return Scored(prepared.labels[top], None, t2[top], q[top], t2_over, q_over, order[top])
+    labels = prepared.labels[top] if prepared.labels is not None else _labels(frame, index, plan, prepared.rows[top])
+    return Scored(labels, None, t2[top], q[top], t2_over, q_over, order[top])
 
 
 def merge_scored(a: Scored, b: Scored, model: Model) -> Scored:
@@ -232,36 +236,52 @@ def merge_scored(a: Scored, b: Scored, model: Model) -> Scored:
 # --- steps ---------------------------------------------------------------------
 
 
-def _labels(frame: pd.DataFrame, index: int, plan: Plan) -> np.ndarray:
-    n = len(frame)
+def _labels(frame: pd.DataFrame, index: int, plan: Plan, rows: np.ndarray | None = None) -> np.ndarray:
+    """Labels of the piece's rows (or of the rows at ``rows``): the ID column's values, else ``row N``.
+
+    N counts the rows over the pieces in order (1 = the first row of the first
+    part) when the rows before this piece are known, else within the part.
+    """
+    positions = np.arange(len(frame)) if rows is None else np.asarray(rows, dtype=np.int64)
     offset = None if plan.row_offsets is None else int(plan.row_offsets[index])
-    numbers = (np.arange(n) + 1 + offset) if offset is not None else None
+
+    def numbered(where):
+        if offset is None:
+            return [f"row {int(i) + 1} of part {index + 1}" for i in where]
+        return [f"row {int(i) + 1 + offset}" for i in where]
+
     if plan.id_column is None:
-        if numbers is None:
-            return np.array([f"row {i + 1} of part {index + 1}" for i in range(n)], dtype=object)
-        return np.array([f"row {i}" for i in numbers], dtype=object)
-    column = frame[plan.id_column]
+        return np.array(numbered(positions), dtype=object)
+    column = frame[plan.id_column].iloc[positions]
     if pd.api.types.is_numeric_dtype(column):
         values = column.to_numpy(dtype=float, na_value=np.nan)
         labels = np.array([str(int(v)) if float(v).is_integer() else str(v) for v in values], dtype=object)
     else:
-        labels = column.astype(object).to_numpy()
+        labels = column.astype(object).to_numpy().copy()
     blank = pd.isna(column).to_numpy()
     if blank.any():
-        labels[blank] = [f"row {i}" for i in (numbers[blank] if numbers is not None else np.flatnonzero(blank) + 1)]
+        labels[blank] = numbered(positions[blank])
     return labels.astype(object)
 
 
 def _numbers(frame: pd.DataFrame, variables, path: str) -> np.ndarray:
-    block = np.empty((len(frame), len(variables)))
-    for j, variable in enumerate(variables):
+    """The chosen columns as one float64 matrix, a private copy (transforms write into it).
+
+    A Parquet piece arrives as one consolidated pandas block, so this is one
+    copy in column order (Fortran), whose column reductions are the fast ones.
+    """
+    try:
+        return np.array(frame[list(variables)].to_numpy(dtype=np.float64, na_value=np.nan), order="F", copy=True)
+    except (TypeError, ValueError):
+        pass
+    for variable in variables:  # find the column that holds text, to name it
         try:
-            block[:, j] = frame[variable].to_numpy(dtype=np.float64, na_value=np.nan)
+            frame[variable].to_numpy(dtype=np.float64, na_value=np.nan)
         except (TypeError, ValueError):
             raise OrdinateError(
                 f"The column '{variable}' holds text in the part '{path}' but numbers in the others."
             ) from None
-    return block
+    raise OrdinateError(f"The part '{path}' holds values that are not numbers in the chosen columns.")
 
 
 def _transform(values: np.ndarray, plan: Plan, path: str, rows: np.ndarray) -> None:

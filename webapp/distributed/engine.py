@@ -83,6 +83,7 @@ def analyse_long(source: Source, recipe: Recipe, client, *, components="auto", c
         )
     if not 0 < confidence < 1:
         raise OrdinateError(f"The confidence level must be between 0 and 1 (for example 0.95); got {confidence}.")
+    clock = _Clock()
     id_column = source_id_column(source, recipe.id_column)
     variables = _variables(source, recipe, id_column)
     plan = blocks.Plan(
@@ -100,7 +101,7 @@ def analyse_long(source: Source, recipe: Recipe, client, *, components="auto", c
         plan = _replace(plan, row_offsets=_count_rows(source, client))
     plan = _replace(plan, shift=blocks.shift_from_head(source.head, plan))
     warnings: list[str] = []
-    clock = _Clock()
+    clock.lap("set_up")
     if recipe.missing == "mean":
         plan = _replace(plan, fill=_observed_means(source, client, plan))
         clock.lap("means")

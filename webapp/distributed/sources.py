@@ -158,7 +158,9 @@ def _parquet_source(given: str, files: list[str]) -> Source:
         pieces += _row_group_pieces(file, handle)
     if not pieces:
         raise OrdinateError(f"The Parquet data at '{given}' hold no rows.")
-    head = first.read_row_group(0).slice(0, 1000).to_pandas() if first.metadata.num_row_groups else reference.empty_table().to_pandas()
+    # The first rows only (for the shift and the ID column), not a whole row group.
+    batch = next(first.iter_batches(batch_size=1000), None) if first.metadata.num_row_groups else None
+    head = (batch.to_pandas() if batch is not None else reference.empty_table().to_pandas())
     numeric, text = _column_kinds(head)
     return Source(given, "parquet", tuple(pieces), tuple(head.columns), numeric, text, head)
 
