@@ -191,3 +191,10 @@ def test_project_scores_the_samples_a_transform_can_take_and_names_the_others(ir
     batch.write_text("\n".join(lines) + "\n")
     assert main(["project", str(model), str(batch), "--json", str(out)]) == 0
     assert json.loads(out.read_text())["scores"] == projected["scores"]
+
+
+def test_spectral_options_are_refused_for_the_long_data_engine(iris_csv, capsys):
+    for flags in (["--ranges", "1-2"], ["--row-correction", "snv"], ["--savgol", "5,2,1"], ["--rows-are", "variables"]):
+        assert main(["analyze", str(iris_csv), "--engine", "dask", *flags]) == 2
+        err = capsys.readouterr().err
+        assert flags[0] in err and "in-memory engine only" in err and "Traceback" not in err

@@ -24,6 +24,7 @@ LAYER_RANKS = {
     "analysis": 1,
     "state": 2,
     "store": 3,
+    "distributed": 3,  # the Dask engine for long data: beside store, above analysis and state
     "figures": 3,
     "ui": 4,
     "web": 5,

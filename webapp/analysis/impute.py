@@ -175,13 +175,26 @@ def scale_divisors(values: np.ndarray, scaling: str) -> tuple[np.ndarray, np.nda
     p = values.shape[1]
     if scaling == "none":
         return np.ones(p), np.zeros(p, dtype=bool)
-    spread = np.ptp(values, axis=0)
-    magnitude = np.max(np.abs(values), axis=0)
+    std = None if scaling == "range" else values.std(axis=0, ddof=1)
+    return divisors_from_summary(scaling, values.min(axis=0), values.max(axis=0), std)
+
+
+def divisors_from_summary(scaling: str, minimum: np.ndarray, maximum: np.ndarray, std: np.ndarray | None):
+    """:func:`scale_divisors` from column minima, maxima and standard deviations (ddof = 1).
+
+    Shared with engines that summarise the columns part by part. ``std`` may be
+    None for ``range`` and ``none``.
+    """
+    minimum, maximum = np.asarray(minimum, dtype=float), np.asarray(maximum, dtype=float)
+    if scaling == "none":
+        return np.ones(minimum.shape[0]), np.zeros(minimum.shape[0], dtype=bool)
+    spread = maximum - minimum
+    magnitude = np.maximum(np.abs(minimum), np.abs(maximum))
     zero = spread <= 1e-12 * np.maximum(magnitude, np.finfo(float).tiny)
     if scaling == "range":
         scale = spread
     else:
-        scale = values.std(axis=0, ddof=1)
+        scale = np.asarray(std, dtype=float)
         if scaling == "pareto":
             scale = np.sqrt(scale)
     return np.where(zero, 1.0, scale), zero

@@ -22,6 +22,7 @@ import numpy as np
 from webapp.analysis import ENGINE_VERSION
 from webapp.analysis.diagnostics import hotelling_t2, model_q_limit, model_t2_limit
 from webapp.analysis.errors import OrdinateError
+from webapp.analysis.pca import PCAFit
 from webapp.analysis.pipeline import Analysis, residual_moments
 from webapp.analysis.recipe import Preprocessor, Recipe
 from webapp.analysis.spectra import ROW_CORRECTIONS, SpectralSteps, check_savgol
@@ -74,19 +75,25 @@ class Projection:
 
 def model_from_analysis(analysis: Analysis) -> ReferenceModel:
     fitted, diag = analysis.fitted, analysis.diagnostics
-    pca, k = fitted.pca, diag.components
+    return model_from_fit(fitted.prepared.preprocessor, fitted.pca, diag.components, diag.confidence,
+                          diag.q_limit, diag.q_limit_method)
+
+
+def model_from_fit(preprocessor: Preprocessor, pca: PCAFit, k: int, confidence: float,
+                   q_limit: float, q_limit_method: str) -> ReferenceModel:
+    """The reference model of a fit at K components (shared by every engine)."""
     return ReferenceModel(
-        recipe=fitted.recipe,
-        preprocessor=fitted.prepared.preprocessor,
+        recipe=preprocessor.recipe,
+        preprocessor=preprocessor,
         loadings=np.array(pca.loadings[:, :k]),
         eigenvalues=np.array(pca.eigenvalues[:k]),
         n_samples=pca.n_samples,
         total_variance=pca.total_variance,
         residual_theta=residual_moments(pca, k),
         residual_eigenvalues=np.array(pca.eigenvalues[k:]) if pca.complete_spectrum else None,
-        confidence=diag.confidence,
-        q_limit=diag.q_limit,
-        q_limit_method=diag.q_limit_method,
+        confidence=float(confidence),
+        q_limit=float(q_limit),
+        q_limit_method=q_limit_method,
         engine_version=ENGINE_VERSION,
     )
 

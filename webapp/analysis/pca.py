@@ -151,6 +151,35 @@ def fit_pca(
     return _assemble(X, offset, small_offset, spectrum, resolved, n_components)
 
 
+def fit_pca_from_cross_product(cross: np.ndarray, n_samples: int, n_components: int | None = None) -> PCAFit:
+    """PCA from the p x p cross-product ``XᵀX`` of the preprocessed data (n rows).
+
+    For engines that never hold X as one matrix (the Dask engine accumulates
+    ``XᵀX`` part by part, see :mod:`webapp.analysis.moments`). The same
+    eigendecomposition, rank rule and sign rule as the ``covariance`` solver
+    of :func:`fit_pca`; eigenvalues are those of ``XᵀX / (n - 1)``. The
+    returned ``scores`` are empty (0 x k): compute them as ``X @ loadings``
+    where the rows are.
+    """
+    cross = np.array(cross, dtype=float)  # a copy: eigh overwrites it
+    p = cross.shape[0] if cross.ndim == 2 else 0
+    if cross.ndim != 2 or cross.shape != (p, p) or p < 1:
+        raise OrdinateError("The cross-product must be a square matrix of the variables.")
+    n = int(n_samples)
+    if n < 2:
+        raise OrdinateError(f"PCA needs at least 2 samples; the data has {n}.")
+    if p > FULL_EIGH_LIMIT:
+        raise OrdinateError(
+            f"This engine handles up to {FULL_EIGH_LIMIT} variables; the data has {p}. Leave out variables."
+        )
+    if n_components is not None and not 1 <= int(n_components) <= min(n, p):
+        raise OrdinateError(f"The number of components must be between 1 and {min(n, p)}; got {n_components}.")
+    spectrum = _cross_product_eigh(cross, n)
+    values, loadings, rank, complete, squared = _components(n, p, spectrum, n_components)
+    scores = np.empty((0, loadings.shape[1]))
+    return _fit(values, loadings, scores, spectrum, (n, p), rank, "covariance", complete, squared)
+
+
 def project(X_new: np.ndarray, loadings: np.ndarray) -> np.ndarray:
     """Scores of new, already preprocessed samples: ``X_new @ loadings``."""
     return _validated_matrix(X_new, allow_few=True) @ loadings
@@ -207,14 +236,18 @@ def _covariance_eigh(X: np.ndarray, offset: np.ndarray | None, small_offset: boo
         cross = X.T @ X
         cross -= X.shape[0] * np.outer(offset, offset)
     else:
-        cross = _cross_product(X, offset)
+        cross = centred_cross_product(X, offset)
+    return _cross_product_eigh(cross, X.shape[0])
+
+
+def _cross_product_eigh(cross: np.ndarray, n: int) -> _Spectrum:
     _check_finite_product(cross)
-    trace = float(np.trace(cross)) / (X.shape[0] - 1)
+    trace = float(np.trace(cross)) / (n - 1)
     values, vectors = scipy.linalg.eigh(cross, overwrite_a=True, check_finite=False, driver="evd")
-    return _Spectrum(values[::-1] / (X.shape[0] - 1), vectors[:, ::-1], trace, None)
+    return _Spectrum(values[::-1] / (n - 1), vectors[:, ::-1], trace, None)
 
 
-def _cross_product(X: np.ndarray, offset: np.ndarray | None) -> np.ndarray:
+def centred_cross_product(X: np.ndarray, offset: np.ndarray | None) -> np.ndarray:
     """XᵀX of the centred data, centring one cache-sized block of rows at a time.
 
     Avoids materialising a centred copy of X (one write and one read of the
@@ -298,7 +331,13 @@ def _check_eigenpairs(matrix: np.ndarray, values: np.ndarray, vectors: np.ndarra
 
 
 def _assemble(X, offset, small_offset: bool, spectrum: _Spectrum, solver, n_components) -> PCAFit:
-    n, p = X.shape
+    values, loadings, rank, complete, squared = _components(*X.shape, spectrum, n_components)
+    scores = _scores(X, offset, small_offset, loadings)
+    return _fit(values, loadings, scores, spectrum, X.shape, rank, solver, complete, squared)
+
+
+def _components(n: int, p: int, spectrum: _Spectrum, n_components):
+    """Eigenvalues cleaned of roundoff, loadings up to the rank with the sign rule, rank."""
     values = np.clip(spectrum.values, 0.0, None)
     tolerance = max(n, p) * np.finfo(float).eps * (values[0] if values.size else 0.0)
     values[values <= tolerance] = 0.0
@@ -310,7 +349,11 @@ def _assemble(X, offset, small_offset: bool, spectrum: _Spectrum, solver, n_comp
     k = min(vectors.shape[1], n_components or vectors.shape[1], max(rank, 1))
     loadings = np.ascontiguousarray(vectors[:, :k])
     apply_sign_rule(loadings)  # before the scores, so they need no second pass
-    scores = _scores(X, offset, small_offset, loadings)
+    return values, loadings, rank, complete, squared
+
+
+def _fit(values, loadings, scores, spectrum, shape, rank, solver, complete, squared) -> PCAFit:
+    n, p = shape
     singular = np.sqrt(values * (n - 1))
     for array in (values, loadings, scores, singular):
         array.setflags(write=False)

@@ -96,13 +96,25 @@ def parallel_advice(fitted: FittedRecipe, *, seed: int = 0) -> ComponentAdvice:
     Should parallel analysis refuse these data, the advice stands on the other
     rules (``parallel`` stays None and the text says "not run").
     """
-    pca, X = fitted.pca, fitted.prepared.matrix
+    return sample_advice(fitted.pca, fitted.prepared.matrix, seed=seed, fallback=fitted.advice)
+
+
+def sample_advice(pca: PCAFit, X: np.ndarray, *, seed: int = 0, fallback: ComponentAdvice | None = None) -> ComponentAdvice:
+    """Component advice with parallel analysis on the preprocessed rows ``X``.
+
+    ``X`` holds every row of the fit (the in-memory engine) or a uniform
+    random sample of them (engines for long data); the advice then says so.
+    Should parallel analysis refuse the data, ``fallback`` (default: the
+    advice without it) is returned.
+    """
     n, p = X.shape
     permutations = int(np.clip(PERMUTATION_BUDGET_CELLS / (n * p), 20, 100))
+    sampled_from = pca.n_samples if n < pca.n_samples else None
     try:
-        return advise_components(pca.eigenvalues, pca.total_variance, p, X=X, n_permutations=permutations, seed=seed)
+        return advise_components(pca.eigenvalues, pca.total_variance, p, X=X, n_permutations=permutations,
+                                 seed=seed, sampled_from=sampled_from)
     except OrdinateError:
-        return fitted.advice
+        return fallback if fallback is not None else advise_components(pca.eigenvalues, pca.total_variance, p)
 
 
 def with_parallel_analysis(fitted: FittedRecipe, *, seed: int = 0, advice: ComponentAdvice | None = None) -> FittedRecipe:
@@ -132,17 +144,44 @@ def diagnose(fitted: FittedRecipe, components: int | str | None = "auto", confid
         raise OrdinateError(f"The confidence level must be between 0 and 1 (for example 0.95); got {confidence}.")
     pca, X = fitted.pca, fitted.prepared.matrix
     k = resolve_components(fitted, components)
-    t2 = hotelling_t2(pca.scores[:, :k], pca.eigenvalues[:k])
-    q, q_lim, method = _q_with_limit(pca, X, k, confidence)
+    t2, q = sample_statistics(pca, X, pca.scores, k)
+    t2_lim, q_lim, method = control_limits(pca, k, confidence)
     return Diagnostics(
         components=k,
         confidence=float(confidence),
         t2=t2,
         q=q,
-        t2_limit=model_t2_limit(pca.n_samples, pca.eigenvalues[:k], confidence),
+        t2_limit=t2_lim,
         q_limit=q_lim,
         q_limit_method=method,
     )
+
+
+def sample_statistics(pca: PCAFit, X: np.ndarray, scores: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+    """T² and Q at K components of the rows ``X`` (preprocessed) with their ``scores`` on every computed component.
+
+    Works on any block of the model's rows, so that engines holding the rows in
+    parts compute the same numbers part by part.
+    """
+    t2 = hotelling_t2(scores[:, :k], pca.eigenvalues[:k])
+    if pca.complete_spectrum and pca.n_components >= pca.rank:
+        # All variance-carrying components are kept, so the residual is exactly
+        # the discarded scores: no cancellation from ||x||² - ||t||².
+        q = np.einsum("ij,ij->i", scores[:, k:], scores[:, k:])
+    else:
+        q = q_residuals(X, scores[:, :k], pca.loadings[:, :k])
+    return t2, q
+
+
+def control_limits(pca: PCAFit, k: int, confidence: float) -> tuple[float, float, str]:
+    """T² limit for the model's samples, Q limit and the Q method's name, at K components."""
+    q_lim, method = model_q_limit(
+        confidence,
+        total_variance=pca.total_variance,
+        residual_eigenvalues=pca.eigenvalues[k:] if pca.complete_spectrum else None,
+        residual_theta=residual_moments(pca, k),
+    )
+    return model_t2_limit(pca.n_samples, pca.eigenvalues[:k], confidence), q_lim, method
 
 
 def analyse(table, recipe: Recipe, components: int | str | None = "auto", confidence: float = 0.95) -> Analysis:
@@ -158,38 +197,43 @@ def residual_moments(pca: PCAFit, k: int) -> tuple[float, float]:
     return theta1, theta2
 
 
-def _q_with_limit(pca: PCAFit, X: np.ndarray, k: int, confidence: float):
-    if pca.complete_spectrum and pca.n_components >= pca.rank:
-        # All variance-carrying components are kept, so the residual is exactly
-        # the discarded scores: no cancellation from ||x||² - ||t||².
-        q = np.einsum("ij,ij->i", pca.scores[:, k:], pca.scores[:, k:])
-    else:
-        q = q_residuals(X, pca.scores[:, :k], pca.loadings[:, :k])
-    limit, method = model_q_limit(
-        confidence,
-        total_variance=pca.total_variance,
-        residual_eigenvalues=pca.eigenvalues[k:] if pca.complete_spectrum else None,
-        residual_theta=residual_moments(pca, k),
-    )
-    return q, limit, method
-
-
 def analysis_report(analysis: Analysis, table=None) -> dict:
     """The documented JSON report (see docs/cli.md)."""
     fitted, diag = analysis.fitted, analysis.diagnostics
     pca, prepared = fitted.pca, fitted.prepared
-    k = diag.components
+    names = component_names(pca)
+    report = summary_report(fitted.recipe, pca, fitted.advice, prepared.variables, diag.components,
+                            diag.confidence, (diag.t2_limit, diag.q_limit, diag.q_limit_method))
+    report["samples"] = list(prepared.sample_labels)
+    report["scores"] = {name: _floats(pca.scores[:, a]) for a, name in enumerate(names)}
+    report["t2"] = _floats(diag.t2)
+    report["q"] = _floats(diag.q)
+    report["t2_flagged"] = [s for s, f in zip(prepared.sample_labels, diag.t2_flagged) if f]
+    report["q_flagged"] = [s for s, f in zip(prepared.sample_labels, diag.q_flagged) if f]
+    report["warnings"] = list(getattr(table, "warnings", ())) + list(analysis.warnings)
+    return report
+
+
+def component_names(pca: PCAFit) -> list[str]:
+    """``PC1``, ``PC2``, ... for every computed component."""
+    return [f"PC{a + 1}" for a in range(pca.loadings.shape[1])]
+
+
+def summary_report(recipe: Recipe, pca: PCAFit, advice: ComponentAdvice, variables, components: int,
+                   confidence: float, limits: tuple[float, float, str]) -> dict:
+    """The parts of the JSON report that do not list samples (shared by every engine)."""
+    k = components
+    t2_limit, q_limit, q_limit_method = limits
     # Every computed component, so that PC2's loadings can be read when K = 1.
-    names = [f"PC{a + 1}" for a in range(pca.loadings.shape[1])]
+    names = component_names(pca)
     reported = min(pca.eigenvalues.size, MAX_REPORTED_EIGENVALUES if pca.n_variables <= MAX_REPORTED_EIGENVALUES else 100)
     return {
         "version": REPORT_VERSION,
         "engine_version": ENGINE_VERSION,
-        "recipe": fitted.recipe.to_dict(),
-        "recipe_description": fitted.recipe.describe(),
+        "recipe": recipe.to_dict(),
+        "recipe_description": recipe.describe(),
         "solver": pca.solver,
-        "variables": list(prepared.variables),
-        "samples": list(prepared.sample_labels),
+        "variables": list(variables),
         "n_samples": pca.n_samples,
         "n_variables": pca.n_variables,
         "eigenvalues": _floats(pca.eigenvalues[:reported]),
@@ -201,27 +245,21 @@ def analysis_report(analysis: Analysis, table=None) -> dict:
         "computed_components": len(names),
         "kept": names[:k],
         "loadings": {
-            name: dict(zip(prepared.variables, _floats(pca.loadings[:, a]))) for a, name in enumerate(names)
+            name: dict(zip(variables, _floats(pca.loadings[:, a]))) for a, name in enumerate(names)
         },
-        "scores": {name: _floats(pca.scores[:, a]) for a, name in enumerate(names)},
-        "t2": _floats(diag.t2),
-        "q": _floats(diag.q),
-        "t2_limit": float(diag.t2_limit),
-        "q_limit": float(diag.q_limit),
-        "q_limit_method": diag.q_limit_method,
-        "confidence": diag.confidence,
-        "recommended_components": fitted.advice.recommended,
-        "recommendation_rule": fitted.advice.rule,
+        "t2_limit": float(t2_limit),
+        "q_limit": float(q_limit),
+        "q_limit_method": q_limit_method,
+        "confidence": float(confidence),
+        "recommended_components": advice.recommended,
+        "recommendation_rule": advice.rule,
         "component_rules": {
-            "kaiser": fitted.advice.kaiser,
-            "broken_stick": fitted.advice.broken_stick,
-            "parallel_analysis": fitted.advice.parallel,
-            "cumulative": fitted.advice.cumulative,
-            "cumulative_threshold": fitted.advice.cumulative_threshold,
+            "kaiser": advice.kaiser,
+            "broken_stick": advice.broken_stick,
+            "parallel_analysis": advice.parallel,
+            "cumulative": advice.cumulative,
+            "cumulative_threshold": advice.cumulative_threshold,
         },
-        "t2_flagged": [s for s, f in zip(prepared.sample_labels, diag.t2_flagged) if f],
-        "q_flagged": [s for s, f in zip(prepared.sample_labels, diag.q_flagged) if f],
-        "warnings": list(getattr(table, "warnings", ())) + list(analysis.warnings),
     }
 
 

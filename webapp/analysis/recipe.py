@@ -299,7 +299,7 @@ def prepare(table, recipe: Recipe) -> PreparedData:
     labels, positions = labels[keep], np.flatnonzero(keep)
     input_variables, steps = None, None
     if recipe.row_correction != "none" or recipe.savgol is not None:
-        _require_shape(values.shape[0], len(variables), recipe)
+        require_shape(values.shape[0], len(variables), recipe)
         # Under "drop", samples with gaps leave the model, so they stay out of MSC's reference too.
         reference_rows = ~np.isnan(values).any(axis=1) if recipe.missing == "drop" else None
         values, steps = fit_spectral_steps(
@@ -313,7 +313,7 @@ def prepare(table, recipe: Recipe) -> PreparedData:
     values, labels, positions, dropped_samples, imputed = _handle_missing(
         values, labels, positions, variables, recipe, warnings
     )
-    _require_shape(values.shape[0], len(variables), recipe)
+    require_shape(values.shape[0], len(variables), recipe)
     centre = values.mean(axis=0) if recipe.centring == "mean" else np.zeros(len(variables))
     scale, zero = scale_divisors(values, recipe.scaling)
     dropped_variables = tuple(v for v, z in zip(variables, zero) if z)
@@ -327,7 +327,7 @@ def prepare(table, recipe: Recipe) -> PreparedData:
         variables = tuple(v for v, z in zip(variables, zero) if not z)
         transforms = tuple(t for t, z in zip(transforms, zero) if not z)
         imputed = imputed[:, kept] if imputed is not None else None
-        _require_shape(values.shape[0], len(variables), recipe)
+        require_shape(values.shape[0], len(variables), recipe)
     values -= centre
     values /= scale
     preprocessor = Preprocessor(variables, transforms, centre, scale, recipe, input_variables, steps)
@@ -487,7 +487,7 @@ def _extrapolation_note(variables, outside_range) -> str | None:
     )
 
 
-def _require_shape(n_samples: int, n_variables: int, recipe: Recipe) -> None:
+def require_shape(n_samples: int, n_variables: int, recipe: Recipe) -> None:
     if n_samples < MIN_SAMPLES:
         raise OrdinateError(
             f"PCA needs at least {MIN_SAMPLES} samples; only {n_samples} remain after exclusions and missing-value handling."

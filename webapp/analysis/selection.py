@@ -381,6 +381,7 @@ def advise_components(
     seed: int = 0,
     cumulative_threshold: float = 0.80,
     quantile: float = 0.95,
+    sampled_from: int | None = None,
 ) -> ComponentAdvice:
     """Apply every rule and recommend a number of components.
 
@@ -404,6 +405,11 @@ def advise_components(
         Passed to :func:`parallel_analysis`.
     cumulative_threshold : float
         For :func:`cumulative_count`.
+    sampled_from : int, optional
+        When ``X`` is a uniform random sample of the rows of longer data, the
+        number of rows of those data: the sample's total variance is then only
+        an estimate, so it is not checked against ``total_variance``, and the
+        rule says that parallel analysis ran on a sample.
     """
     lam = _check_eigenvalues(eigenvalues)
     total = _check_total_variance(total_variance, lam)
@@ -424,7 +430,8 @@ def advise_components(
                 f"{p} variable(s); pass the preprocessed data the PCA was fitted on."
             )
         data_total = float(np.sum(np.var(data, axis=0, ddof=1)))
-        if not math.isclose(data_total, total, rel_tol=_TOTAL_VARIANCE_RTOL):
+        sampled = sampled_from is not None and int(sampled_from) > data.shape[0]
+        if not sampled and not math.isclose(data_total, total, rel_tol=_TOTAL_VARIANCE_RTOL):
             raise OrdinateError(
                 f"The total variance of the data ({data_total:.6g}) differs from the total "
                 f"variance given ({total:.6g}); pass the preprocessed (centred/scaled) "
@@ -441,6 +448,9 @@ def advise_components(
         chosen, rule = parallel, (
             f"parallel analysis ({percentile}, {n_permutations} permutations)"
         )
+        if sampled_from is not None and int(sampled_from) > X.shape[0]:
+            rule = (f"parallel analysis ({percentile}, {n_permutations} permutations, "
+                    f"on a uniform random sample of {X.shape[0]} of the {int(sampled_from)} samples)")
     elif broken > 0:
         chosen, rule = broken, "broken-stick model"
     else:

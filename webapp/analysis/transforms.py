@@ -6,7 +6,9 @@ import numpy as np
 
 from webapp.analysis.errors import OrdinateError
 
-_FUNCTIONS = {"log10": np.log10, "ln": np.log, "log1p": np.log1p, "sqrt": np.sqrt}
+__all__ = ["TRANSFORM_FUNCTIONS", "apply_transforms", "domain_reasons", "domain_violations", "domain_words"]
+
+TRANSFORM_FUNCTIONS = {"log10": np.log10, "ln": np.log, "log1p": np.log1p, "sqrt": np.sqrt}
 
 
 def apply_transforms(values: np.ndarray, variables, transforms, labels) -> None:
@@ -15,17 +17,17 @@ def apply_transforms(values: np.ndarray, variables, transforms, labels) -> None:
         if transform == "none":
             continue
         column = values[:, j]
-        bad = _domain_violations(column, transform)
+        bad = domain_violations(column, transform)
         if bad.any():
             first = int(np.flatnonzero(bad)[0])
             where = f" (first at sample '{labels[first]}': {column[first]:g})" if labels is not None else ""
             raise OrdinateError(
                 f"Cannot apply {transform} to '{variable}': {int(bad.sum())} value(s) are not "
-                f"{_domain_words(transform)}{where}. "
+                f"{domain_words(transform)}{where}. "
                 "Choose another transform for this variable or fix the values."
             )
         with np.errstate(invalid="ignore", divide="ignore"):
-            values[:, j] = _FUNCTIONS[transform](column)
+            values[:, j] = TRANSFORM_FUNCTIONS[transform](column)
 
 
 def domain_reasons(values: np.ndarray, variables, transforms) -> dict[int, str]:
@@ -34,17 +36,19 @@ def domain_reasons(values: np.ndarray, variables, transforms) -> dict[int, str]:
     for j, (variable, transform) in enumerate(zip(variables, transforms)):
         if transform == "none":
             continue
-        for row in np.flatnonzero(_domain_violations(values[:, j], transform)):
+        for row in np.flatnonzero(domain_violations(values[:, j], transform)):
             reasons.setdefault(int(row), []).append(
-                f"'{variable}' = {values[row, j]:g} is not {_domain_words(transform)} ({transform})")
+                f"'{variable}' = {values[row, j]:g} is not {domain_words(transform)} ({transform})")
     return {row: "; ".join(parts) for row, parts in sorted(reasons.items())}
 
 
-def _domain_words(transform: str) -> str:
+def domain_words(transform: str) -> str:
+    """What values ``transform`` can take, in words."""
     return "greater than -1" if transform == "log1p" else ("zero or more" if transform == "sqrt" else "greater than zero")
 
 
-def _domain_violations(column: np.ndarray, transform: str) -> np.ndarray:
+def domain_violations(column: np.ndarray, transform: str) -> np.ndarray:
+    """Finite values of ``column`` that ``transform`` cannot take (missing values are not violations)."""
     finite = np.isfinite(column)
     if transform in ("log10", "ln"):
         return finite & (column <= 0)

@@ -4,4 +4,6 @@ import sys
 
 from webapp.cli.main import main
 
-sys.exit(main())
+# Guarded: Dask's worker processes start by importing the main module again.
+if __name__ == "__main__":
+    sys.exit(main())

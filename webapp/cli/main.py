@@ -61,7 +61,8 @@ def _parser() -> argparse.ArgumentParser:
 
 def _add_analyze(commands) -> None:
     cmd = commands.add_parser("analyze", help="fit PCA to a CSV/TSV file and print the variance table")
-    cmd.add_argument("data", type=Path, help="CSV or TSV file of samples (rows) by variables (columns)")
+    cmd.add_argument("data", type=Path, help="CSV or TSV file of samples (rows) by variables (columns); "
+                     "with --engine dask also a Parquet file, a directory of Parquet parts or a quoted glob of CSV parts")
     _add_layout(cmd)
     cmd.add_argument("--ranges", metavar="LO-HI,...",
                      help="keep only these ranges of the variable axis, e.g. 1100-1700,2000-2400 "
@@ -85,6 +86,12 @@ def _add_analyze(commands) -> None:
     cmd.add_argument("--confidence", type=float, default=0.95, help="confidence for T² and Q limits (default 0.95)")
     cmd.add_argument("--json", type=Path, metavar="OUT", help="write the full results as JSON")
     cmd.add_argument("--model", type=Path, metavar="OUT", help="save the reference model for `ordinate project`")
+    cmd.add_argument("--engine", choices=("memory", "dask"), default="memory",
+                     help="memory (default): the whole table in this process; dask: long data, part by part on a Dask cluster")
+    cmd.add_argument("--scheduler", metavar="ADDRESS",
+                     help="with --engine dask: address of an existing Dask scheduler (default: start a local cluster)")
+    cmd.add_argument("--workers", type=int, metavar="N",
+                     help="with --engine dask: worker processes of the local cluster (default: one per core, at most 4)")
     cmd.set_defaults(run=_run_analyze)
 
 
@@ -151,7 +158,21 @@ def _run_report(args) -> int:
     return report_main(args.data_dir, args.view_id, args.out)
 
 
+def _refuse_for_dask(args) -> None:
+    spectral = [flag for flag, used in (("--rows-are variables", getattr(args, "rows_are", "samples") == "variables"),
+                                        ("--ranges", args.ranges), ("--row-correction", args.row_correction != "none"),
+                                        ("--savgol", args.savgol)) if used]
+    if spectral:
+        raise OrdinateError(f"{', '.join(spectral)} work with the in-memory engine only (long data are not spectra); "
+                            "leave out --engine dask.")
+
+
 def _run_analyze(args) -> int:
+    if args.engine == "dask":
+        _refuse_for_dask(args)
+        return _run_analyze_long(args)
+    if args.scheduler or args.workers is not None:
+        raise OrdinateError("--scheduler and --workers apply to the Dask engine only; add --engine dask.")
     from webapp.analysis.model_io import model_from_analysis, save_model
     from webapp.analysis.pipeline import analyse, analysis_report
     from webapp.analysis.recipe import Recipe
@@ -181,6 +202,48 @@ def _run_analyze(args) -> int:
         print(f"Wrote the JSON report to {args.json}.")
     if args.model:
         save_model(model_from_analysis(analysis), args.model)
+        print(f"Wrote the reference model to {args.model} (score new samples with `ordinate project`).")
+    return 0
+
+
+def _run_analyze_long(args) -> int:
+    from types import SimpleNamespace
+
+    from webapp.analysis.model_io import save_model
+    from webapp.analysis.recipe import Recipe
+    from webapp.distributed.cluster import dask_client
+    from webapp.distributed.engine import analyse_long, source_id_column
+    from webapp.distributed.report import long_model, long_report
+    from webapp.distributed.sources import open_source
+
+    source = open_source(str(args.data))
+    # The recipe helpers read the columns of a table; the first rows of the first part stand for it.
+    columns = SimpleNamespace(frame=source.head, numeric_columns=source.numeric_columns,
+                              id_column=source_id_column(source, args.id_column))
+    _check_column(columns, args.group_column, "group")
+    recipe = Recipe(
+        variables=_chosen_variables(columns, args.exclude_columns, args.id_column),
+        excluded_samples=tuple(args.exclude_samples),
+        transforms=_parse_transforms(args.transform, columns),
+        missing=args.missing,
+        centring=args.centring,
+        scaling=args.scaling,
+        id_column=args.id_column,
+    )
+    with dask_client(args.scheduler, args.workers) as client:
+        analysis = analyse_long(source, recipe, client, components=args.components, confidence=args.confidence)
+    report = long_report(analysis)
+    if args.group_column:
+        report["group_column"] = args.group_column
+    print(format_variance_table(report))
+    print(f"Dask engine: {report['n_samples']} samples from {report['parts']} part(s) in {report['partitions']} "
+          f"partition(s); parallel analysis on {report['parallel_analysis_rows']} of them"
+          f"{' (a uniform random sample)' if report['parallel_analysis_rows'] < report['n_samples'] else ''}.")
+    if args.json:
+        args.json.write_text(json.dumps(report, indent=1, ensure_ascii=False), encoding="utf-8")
+        print(f"Wrote the JSON report to {args.json}.")
+    if args.model:
+        save_model(long_model(analysis), args.model)
         print(f"Wrote the reference model to {args.model} (score new samples with `ordinate project`).")
     return 0
 
@@ -307,8 +370,10 @@ def format_variance_table(report: dict) -> str:
     lines.append(f"Recommended: {report['recommended_components']} ({report['recommendation_rule']}); "
                  f"K used: {report['components']}.")
     lines.append(
-        f"At {100 * report['confidence']:g} % confidence: {len(report['t2_flagged'])} sample(s) above the T² limit, "
-        f"{len(report['q_flagged'])} above the Q limit. Flags are statistical evidence, not a release decision."
+        f"At {100 * report['confidence']:g} % confidence: "
+        f"{report.get('t2_flagged_count', len(report['t2_flagged']))} sample(s) above the T² limit, "
+        f"{report.get('q_flagged_count', len(report['q_flagged']))} above the Q limit. "
+        "Flags are statistical evidence, not a release decision."
     )
     lines += _flagged_line("T²", report["t2_flagged"]) + _flagged_line("Q", report["q_flagged"])
     lines += [f"Note: {in_cli_words(w)}" for w in report["warnings"]]

@@ -1,0 +1,137 @@
+"""Dask engine on long Parquet data: fit time against one summing pass, growth, worker memory.
+
+Run on demand (needs ~8 GB of free disk in the temporary directory and takes minutes):
+
+    python -m pytest tests/bench/test_dask_bench.py -s
+
+Data: 10^7 x 100 float64 (synthetic: 8 latent factors plus noise, columns offset
+and scaled differently, fixed seed), written as 10 Parquet files of 10^6 rows in
+row groups of 125 000 rows, uncompressed. ORDINATE_BENCH_COLUMNS=50 halves it.
+The reference is one ``X.sum(axis=0).compute()`` pass of dask.array over
+``dask.dataframe.read_parquet`` of the same files on the same cluster, the two
+measured in turn. Peak memory per worker is the largest resident set
+(``ru_maxrss``) of the worker processes, on a restarted cluster per measurement.
+Only correctness is asserted; ratios are printed and appended to results.jsonl.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import resource
+import statistics
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from webapp.analysis.recipe import Recipe
+from webapp.distributed.cluster import dask_client
+from webapp.distributed.engine import analyse_long
+from webapp.distributed.sources import open_source
+
+RESULTS = Path(__file__).with_name("results.jsonl")
+ROWS_PER_FILE = 1_000_000
+FILES = 10
+COLUMNS = int(os.environ.get("ORDINATE_BENCH_COLUMNS", "100"))
+ROW_GROUP = 125_000
+REPEATS = 3
+
+
+def _record(name, **values):
+    values = {"benchmark": name, "when": time.strftime("%Y-%m-%d %H:%M"), **values}
+    print(json.dumps(values))
+    with RESULTS.open("a") as handle:
+        handle.write(json.dumps(values) + "\n")
+
+
+@pytest.fixture(scope="module")
+def files(tmp_path_factory):
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    folder = tmp_path_factory.mktemp("long")
+    rng = np.random.default_rng(11)
+    mixing = rng.standard_normal((8, COLUMNS)) * np.linspace(3, 0.5, 8)[:, None]
+    offsets, scales = rng.normal(100, 30, COLUMNS), rng.uniform(0.5, 5, COLUMNS)
+    names = [f"tag_{j:03d}" for j in range(COLUMNS)]
+    paths = []
+    for f in range(FILES):
+        path = folder / f"part-{f:02d}.parquet"
+        with pq.ParquetWriter(path, pa.schema([(n, pa.float64()) for n in names]), compression="none") as writer:
+            for _ in range(ROWS_PER_FILE // ROW_GROUP):
+                block = (rng.standard_normal((ROW_GROUP, 8)) @ mixing + rng.standard_normal((ROW_GROUP, COLUMNS)))
+                block = block * scales + offsets
+                writer.write_table(pa.table({n: block[:, j] for j, n in enumerate(names)}))
+        paths.append(path)
+    yield paths
+    for path in paths:
+        path.unlink()
+
+
+def _subset(paths, count: int, tmp_path) -> str:
+    folder = tmp_path / f"rows-{count}"
+    folder.mkdir()
+    for path in paths[:count]:
+        (folder / path.name).symlink_to(path)
+    return str(folder)
+
+
+def _peak_rss_mb(client) -> float:
+    peaks = client.run(lambda: resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
+    return max(peaks.values()) / 1024  # Linux reports KiB
+
+
+def _sum_pass(folder: str):
+    import dask.dataframe as dd
+
+    return dd.read_parquet(folder).to_dask_array().sum(axis=0).compute()
+
+
+def test_fit_against_one_summing_pass_and_growth(files, tmp_path):
+    with dask_client() as client:
+        load_before = os.getloadavg()[0]
+        workers = len(client.scheduler_info()["workers"])
+        rows = {}
+        for count in (1, 3, 10):
+            folder = _subset(files, count, tmp_path)
+            fits, totals, sums = [], [], []
+            if count == 1:  # warm-up: the workers import the engine and read the footers once
+                analyse_long(open_source(folder), Recipe(), client)
+                _sum_pass(folder)
+            for _ in range(REPEATS):
+                start = time.perf_counter()
+                analysis = analyse_long(open_source(folder), Recipe(), client)
+                totals.append(time.perf_counter() - start)
+                fits.append(totals[-1] - analysis.seconds["scores"])
+                start = time.perf_counter()
+                column_sums = _sum_pass(folder)
+                sums.append(time.perf_counter() - start)
+            assert analysis.pca.n_samples == count * ROWS_PER_FILE
+            assert np.isfinite(column_sums).all()
+            # Unit scaling: the eigenvalues of a correlation matrix sum to p.
+            assert abs(analysis.pca.total_variance - COLUMNS) < 1e-9 * COLUMNS
+            rows[count * ROWS_PER_FILE] = {
+                "fit_s": statistics.median(fits), "fit_and_scores_s": statistics.median(totals),
+                "sum_pass_s": statistics.median(sums), "passes": {k: round(v, 3) for k, v in analysis.seconds.items()},
+            }
+        n = np.array(sorted(rows), dtype=float)
+        fit = np.array([rows[int(k)]["fit_s"] for k in n])
+        slope, intercept = np.polyfit(n, fit, 1)
+        largest = rows[FILES * ROWS_PER_FILE]
+        _record("dask fit vs sum pass", columns=COLUMNS, workers=workers, by_rows=rows,
+                ratio_fit_to_sum=largest["fit_s"] / largest["sum_pass_s"],
+                ratio_fit_and_scores_to_sum=largest["fit_and_scores_s"] / largest["sum_pass_s"],
+                slope_s_per_million_rows=slope * 1e6, intercept_s=intercept,
+                linearity=float(np.corrcoef(n, fit)[0, 1]), load_average_before=load_before,
+                load_average_after=os.getloadavg()[0])
+
+        client.restart()
+        analyse_long(open_source(str(files[0].parent)), Recipe(), client)
+        fit_peak = _peak_rss_mb(client)
+        client.restart()
+        _sum_pass(str(files[0].parent))
+        sum_peak = _peak_rss_mb(client)
+        _record("dask peak memory per worker", columns=COLUMNS, workers=workers, rows=FILES * ROWS_PER_FILE,
+                fit_peak_rss_mb=fit_peak, sum_pass_peak_rss_mb=sum_peak)

@@ -1,0 +1,137 @@
+"""Column moments of a long table, accumulated part by part and merged pairwise.
+
+For one block of rows X_b (n_b x p) :func:`block_moments` gives the count
+n_b, the column means m_b, the centred cross-product
+M_b = (X_b - 1m_bᵀ)ᵀ(X_b - 1m_bᵀ) (the rows are centred block by block before
+the product, so large offsets cost no digits), and the column minima and
+maxima. Two blocks merge exactly (:func:`merge_moments`) by the update of
+Chan, Golub & LeVeque (1983)::
+
+    n = n_a + n_b,      δ = m_b - m_a,
+    m = m_a + δ n_b / n,
+    M = M_a + M_b + δδᵀ n_a n_b / n.
+
+Only differences of means enter the update, never the raw sums of squares, so
+data near 1e6 that vary in the third decimal keep their digits, where
+``XᵀX - n x̄x̄ᵀ`` loses all of them. :func:`merge_all` merges a list of blocks
+as a balanced binary tree, so rounding grows with the logarithm of the number
+of blocks rather than with it.
+
+The differences of means δ are the weak point when the means are large
+(values near 1e6 vary in the third decimal): a float64 mean near 1e6 carries
+an absolute error near 1e-10, which δ then carries relative to its own small
+size. So every block first subtracts one common shift ``s`` (the first row of
+the data, known before the pass: Chan, Golub & LeVeque 1983, section 4,
+"shifted data"); the moments are those of X - s and the mean of X is s + m.
+
+The covariance of the whole table is ``M / (n - 1)``; its diagonal gives the
+standard deviations for scaling, the minima and maxima the ranges.
+
+Reference: Chan, T. F., Golub, G. H. & LeVeque, R. J. (1983). Algorithms for
+computing the sample variance: analysis and recommendations. *The American
+Statistician* 37(3), 242-247.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from webapp.analysis.errors import OrdinateError
+from webapp.analysis.pca import centred_cross_product
+
+
+@dataclass(frozen=True, eq=False)
+class Moments:
+    """Count, means, centred cross-product, minima and maxima of a block of rows."""
+
+    count: int
+    mean: np.ndarray  # (p,) of the shifted values X - shift
+    cross: np.ndarray  # (p, p): sum over rows of (x - mean)(x - mean)ᵀ
+    minimum: np.ndarray  # (p,), +inf for an empty block
+    maximum: np.ndarray  # (p,), -inf for an empty block
+    shift: np.ndarray | None = None  # (p,) subtracted before the means; None: zero
+
+    @property
+    def column_means(self) -> np.ndarray:
+        """Means of the original values: shift + mean of the shifted values."""
+        return self.mean if self.shift is None else self.shift + self.mean
+
+    @property
+    def n_variables(self) -> int:
+        return self.mean.shape[0]
+
+    @property
+    def covariance(self) -> np.ndarray:
+        """``cross / (n - 1)``, the sample covariance (n - 1 denominator)."""
+        if self.count < 2:
+            raise OrdinateError(f"A covariance needs at least 2 samples; there are {self.count}.")
+        return self.cross / (self.count - 1)
+
+    @property
+    def std(self) -> np.ndarray:
+        """Column standard deviations, ddof = 1."""
+        return np.sqrt(np.clip(np.diagonal(self.covariance), 0.0, None))
+
+
+def empty_moments(n_variables: int, shift: np.ndarray | None = None) -> Moments:
+    p = int(n_variables)
+    return Moments(0, np.zeros(p), np.zeros((p, p)), np.full(p, np.inf), np.full(p, -np.inf), shift)
+
+
+def block_moments(X: np.ndarray, shift: np.ndarray | None = None) -> Moments:
+    """Moments of one block of rows (n_b x p, finite values; n_b may be 0).
+
+    ``shift`` (p,) is subtracted from every row first; blocks to be merged
+    must share it (see the module's note on shifted data).
+    """
+    X = np.asarray(X, dtype=float)
+    if X.ndim != 2:
+        raise OrdinateError("Moments need a table of samples (rows) by variables (columns).")
+    n, p = X.shape
+    if shift is not None:
+        shift = np.asarray(shift, dtype=float)
+    if n == 0:
+        return empty_moments(p, shift)
+    shifted = X if shift is None else X - shift
+    mean = shifted.mean(axis=0)
+    return Moments(n, mean, centred_cross_product(shifted, mean), X.min(axis=0), X.max(axis=0), shift)
+
+
+def merge_moments(a: Moments, b: Moments) -> Moments:
+    """The moments of the rows of ``a`` and ``b`` together (Chan, Golub & LeVeque 1983)."""
+    if a.n_variables != b.n_variables:
+        raise OrdinateError(
+            f"Cannot merge moments of {a.n_variables} and {b.n_variables} variables; the parts differ in columns."
+        )
+    if not _same_shift(a.shift, b.shift):
+        raise OrdinateError("Cannot merge moments computed with different shifts.")
+    if b.count == 0:
+        return a
+    if a.count == 0:
+        return b
+    n = a.count + b.count
+    delta = b.mean - a.mean
+    mean = a.mean + delta * (b.count / n)
+    cross = a.cross + b.cross
+    cross += np.outer(delta, delta) * (a.count * b.count / n)
+    return Moments(n, mean, cross, np.minimum(a.minimum, b.minimum), np.maximum(a.maximum, b.maximum), a.shift)
+
+
+def merge_all(parts: Sequence[Moments]) -> Moments:
+    """Merge blocks pairwise, as a balanced tree (the order of rows does not matter)."""
+    level = list(parts)
+    if not level:
+        raise OrdinateError("There are no rows to compute moments from.")
+    while len(level) > 1:
+        pairs = [merge_moments(level[i], level[i + 1]) for i in range(0, len(level) - 1, 2)]
+        level = pairs + ([level[-1]] if len(level) % 2 else [])
+    return level[0]
+
+
+def _same_shift(a: np.ndarray | None, b: np.ndarray | None) -> bool:
+    if a is None or b is None:
+        return a is None and b is None
+    return a.shape == b.shape and bool(np.array_equal(a, b))

@@ -1,0 +1,262 @@
+"""Where the parts of a long dataset are, what columns they share, and how one piece is read.
+
+A source is one of: a Parquet file; a directory of Parquet parts (``*.parquet``
+files directly inside it, hidden and ``_``-prefixed files ignored); a glob of
+CSV (or TSV) parts; a single CSV file. Everything that can be checked before
+the fit is checked here, on the machine that starts it, so that a missing or
+unreadable part names the file and a schema that differs between parts names
+the column:
+
+* Parquet: every part's footer (schema and row groups) is read; the data are
+  cut into pieces of whole row groups of about ``PIECE_BYTES`` each;
+* CSV: the first part is read in full with the in-memory engine's reader
+  (:func:`webapp.analysis.ingest.read_table`, same parsing rules), every other
+  part's header line is compared with it; each CSV part is one piece, read
+  whole by one worker, so keep parts to a few hundred MB.
+"""
+
+from __future__ import annotations
+
+import glob
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from webapp.analysis.errors import OrdinateError
+
+PIECE_BYTES = 128 * 2**20
+CSV_SUFFIXES = (".csv", ".tsv", ".txt")
+PARQUET_SUFFIXES = (".parquet", ".parq", ".pq")
+MAX_CSV_PART_BYTES = 8 * 2**30
+_GLOB_CHARACTERS = set("*?[")
+
+
+@dataclass(frozen=True)
+class Piece:
+    """One partition: a CSV part, or some row groups of a Parquet part."""
+
+    path: str
+    kind: str  # "parquet" or "csv"
+    row_groups: tuple[int, ...] = ()
+    rows: int | None = None  # known from the Parquet footer; None for CSV
+
+
+@dataclass(frozen=True, eq=False)
+class Source:
+    given: str
+    kind: str
+    pieces: tuple[Piece, ...]
+    columns: tuple[str, ...]
+    numeric_columns: tuple[str, ...]
+    text_columns: tuple[str, ...]
+    head: pd.DataFrame  # the first rows of the first piece (for the shift and the ID column)
+
+    @property
+    def files(self) -> tuple[str, ...]:
+        return tuple(dict.fromkeys(piece.path for piece in self.pieces))
+
+    @property
+    def meta(self) -> pd.DataFrame:
+        return self.head.iloc[:0]
+
+    def row_offsets(self) -> np.ndarray | None:
+        """Rows before each piece, when the footers tell (Parquet); else None."""
+        if any(piece.rows is None for piece in self.pieces):
+            return None
+        return np.concatenate([[0], np.cumsum([piece.rows for piece in self.pieces])[:-1]]).astype(np.int64)
+
+
+def open_source(path: str | os.PathLike) -> Source:
+    """Find and check the parts of ``path``; raise OrdinateError naming what is wrong."""
+    given = str(path)
+    files = _part_files(given)
+    kinds = {_kind_of(f) for f in files}
+    if None in kinds:
+        odd = next(f for f in files if _kind_of(f) is None)
+        raise OrdinateError(f"The part '{odd}' is neither Parquet nor CSV; name the parts *.parquet or *.csv.")
+    if len(kinds) > 1:
+        raise OrdinateError(f"The parts of '{given}' mix Parquet and CSV files; use one kind.")
+    kind = kinds.pop()
+    return _parquet_source(given, files) if kind == "parquet" else _csv_source(given, files)
+
+
+def read_piece(piece: Piece, columns: tuple[str, ...]) -> pd.DataFrame:
+    """The rows of one piece as a data frame with ``columns`` (checked)."""
+    try:
+        if piece.kind == "parquet":
+            import pyarrow.parquet as pq
+
+            frame = pq.ParquetFile(piece.path).read_row_groups(list(piece.row_groups)).to_pandas()
+        else:
+            from webapp.analysis.ingest import read_table
+
+            frame = read_table(piece.path, max_bytes=MAX_CSV_PART_BYTES).frame
+    except OrdinateError as error:
+        raise OrdinateError(f"The part '{piece.path}' cannot be read: {error}") from None
+    except FileNotFoundError:
+        raise OrdinateError(f"The part '{piece.path}' is missing (it was there when the fit started).") from None
+    except Exception as error:  # pyarrow and OS errors: name the file, never a traceback
+        raise OrdinateError(f"The part '{piece.path}' cannot be read ({error}).") from None
+    missing = [c for c in columns if c not in frame.columns]
+    if missing:
+        raise OrdinateError(f"The part '{piece.path}' lacks the column '{missing[0]}' that the other parts have.")
+    return frame
+
+
+# --- finding the parts ---------------------------------------------------------
+
+
+def _part_files(given: str) -> list[str]:
+    if _GLOB_CHARACTERS & set(given):
+        files = sorted(f for f in glob.glob(given) if os.path.isfile(f))
+        if not files:
+            raise OrdinateError(f"No file matches '{given}'.")
+        return [os.path.abspath(f) for f in files]
+    path = Path(given)
+    if not path.exists():
+        raise OrdinateError(f"The data path '{given}' does not exist.")
+    if path.is_dir():
+        try:
+            entries = sorted(path.iterdir())
+        except PermissionError:
+            raise OrdinateError(f"The directory '{given}' cannot be read (permission denied).") from None
+        files = [str(p.resolve()) for p in entries
+                 if p.is_file() and not p.name.startswith((".", "_")) and p.suffix.lower() in PARQUET_SUFFIXES]
+        if not files:
+            raise OrdinateError(f"The directory '{given}' holds no Parquet parts (*.parquet).")
+        return files
+    return [str(path.resolve())]
+
+
+def _kind_of(file: str) -> str | None:
+    suffix = Path(file).suffix.lower()
+    return "parquet" if suffix in PARQUET_SUFFIXES else ("csv" if suffix in CSV_SUFFIXES else None)
+
+
+# --- Parquet -------------------------------------------------------------------
+
+
+def _parquet_source(given: str, files: list[str]) -> Source:
+    import pyarrow.parquet as pq
+
+    pieces, reference, reference_file = [], None, None
+    for file in files:
+        try:
+            handle = pq.ParquetFile(file)
+        except PermissionError:
+            raise OrdinateError(f"The part '{file}' cannot be read (permission denied).") from None
+        except Exception as error:
+            raise OrdinateError(f"The part '{file}' cannot be read as Parquet ({error}).") from None
+        schema = handle.schema_arrow
+        if reference is None:
+            reference, reference_file, first = schema, file, handle
+        else:
+            _compare_schemas(reference, reference_file, schema, file)
+        pieces += _row_group_pieces(file, handle)
+    if not pieces:
+        raise OrdinateError(f"The Parquet data at '{given}' hold no rows.")
+    # The first rows only (for the shift and the ID column), not a whole row group.
+    batch = next(first.iter_batches(batch_size=1000), None) if first.metadata.num_row_groups else None
+    head = (batch.to_pandas() if batch is not None else reference.empty_table().to_pandas())
+    numeric, text = _column_kinds(head)
+    return Source(given, "parquet", tuple(pieces), tuple(head.columns), numeric, text, head)
+
+
+def _compare_schemas(reference, reference_file: str, schema, file: str) -> None:
+    for field in reference:
+        if schema.get_field_index(field.name) < 0:
+            raise OrdinateError(
+                f"The parts differ in their columns: '{field.name}' is in '{reference_file}' but not in '{file}'."
+            )
+        other = schema.field(field.name).type
+        if not _same_kind(field.type, other):
+            raise OrdinateError(
+                f"The parts differ in the column '{field.name}': {field.type} in '{reference_file}', {other} in '{file}'."
+            )
+    extra = [name for name in schema.names if reference.get_field_index(name) < 0]
+    if extra:
+        raise OrdinateError(
+            f"The parts differ in their columns: '{extra[0]}' is in '{file}' but not in '{reference_file}'."
+        )
+
+
+def _same_kind(a, b) -> bool:
+    import pyarrow.types as t
+
+    def kind(x):
+        if t.is_integer(x) or t.is_floating(x) or t.is_decimal(x):
+            return "number"
+        if t.is_string(x) or t.is_large_string(x) or getattr(t, "is_string_view", lambda _: False)(x):
+            return "text"
+        return str(x)
+
+    return kind(a) == kind(b)
+
+
+def _row_group_pieces(file: str, handle) -> list[Piece]:
+    meta = handle.metadata
+    pieces, groups, rows, size = [], [], 0, 0
+    for g in range(meta.num_row_groups):
+        group = meta.row_group(g)
+        groups.append(g)
+        rows += group.num_rows
+        size += group.num_rows * max(meta.num_columns, 1) * 8
+        if size >= PIECE_BYTES:
+            pieces.append(Piece(file, "parquet", tuple(groups), rows))
+            groups, rows, size = [], 0, 0
+    if groups:
+        pieces.append(Piece(file, "parquet", tuple(groups), rows))
+    return pieces
+
+
+# --- CSV -----------------------------------------------------------------------
+
+
+def _csv_source(given: str, files: list[str]) -> Source:
+    from webapp.analysis.ingest import read_table
+
+    first = files[0]
+    try:
+        table = read_table(first, max_bytes=MAX_CSV_PART_BYTES)
+    except OrdinateError as error:
+        raise OrdinateError(f"The part '{first}' cannot be read: {error}") from None
+    except OSError as error:
+        raise OrdinateError(f"The part '{first}' cannot be read ({error.strerror or error}).") from None
+    header = _header_names(first, table.delimiter)
+    for file in files[1:]:
+        names = _header_names(file, table.delimiter)
+        if names != header:
+            column = next((a for a, b in zip(header, names) if a != b), None)
+            if column is None:
+                longer, other = (header, file) if len(header) > len(names) else (names, first)
+                column = longer[min(len(header), len(names))]
+            raise OrdinateError(
+                f"The parts differ in their columns: '{first}' and '{file}' differ at the column '{column}'."
+            )
+    frame = table.frame
+    numeric = tuple(c for c in table.numeric_columns)
+    text = tuple(c for c in frame.columns if c not in numeric)
+    return Source(given, "csv", tuple(Piece(f, "csv") for f in files), tuple(frame.columns), numeric, text,
+                  frame.head(1000))
+
+
+def _header_names(file: str, delimiter: str) -> list[str]:
+    import csv
+
+    try:
+        with open(file, encoding="utf-8-sig", errors="replace", newline="") as handle:
+            for row in csv.reader(handle, delimiter=delimiter):
+                if any(cell.strip() for cell in row):
+                    return [cell.strip() for cell in row]
+    except OSError as error:
+        raise OrdinateError(f"The part '{file}' cannot be read ({error.strerror or error}).") from None
+    raise OrdinateError(f"The part '{file}' is empty.")
+
+
+def _column_kinds(frame: pd.DataFrame) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    numeric = tuple(c for c in frame.columns
+                    if pd.api.types.is_numeric_dtype(frame[c]) and not pd.api.types.is_bool_dtype(frame[c]))
+    return numeric, tuple(c for c in frame.columns if c not in numeric)
