@@ -27,10 +27,15 @@ FIRST_PERCENT = "#variance-table-element tbody tr:nth-child(1) td:nth-child(3)"
 PARALLEL_VERDICT = "#variance-table-element tbody tr:nth-child({row}) td:nth-child(7)"
 TIMEOUT = 40
 
+# The points as drawn: _fullData holds decoded arrays (the figure's own data may hold
+# float32 typed arrays as {dtype, bdata} objects, which would compare as empty). Null until
+# some trace has points, so a comparison never passes on two empty plots.
 FIGURE_DATA_JS = """
 const plot = document.querySelector('#scores-graph .js-plotly-plot');
-if (!plot || !plot.data) { return null; }
-return JSON.stringify(plot.data.map(t => [t.name || '', Array.from(t.x || []), Array.from(t.y || [])]));
+if (!plot || !plot._fullData) { return null; }
+const traces = plot._fullData.map(t => [t.name || '', Array.from(t.x || []), Array.from(t.y || [])]);
+if (!traces.some(t => t[1].length > 0)) { return null; }
+return JSON.stringify(traces);
 """
 
 
