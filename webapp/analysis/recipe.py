@@ -290,7 +290,7 @@ def prepare(table, recipe: Recipe) -> PreparedData:
     warnings: list[str] = []
     id_column = _resolve_id_column(table, recipe)
     labels = np.asarray(_labels(table, id_column), dtype=object)
-    variables = _resolve_variables(table, recipe, id_column)
+    variables = resolve_variables(table, recipe, id_column)
     if recipe.uses_axis:
         axis = _required_axis(table, id_column)
         variables, spectral_block, segments = spectral_columns(variables, axis, recipe.ranges)
@@ -398,7 +398,8 @@ def _label_text(value, row_number: int) -> str:
     return str(value)
 
 
-def _resolve_variables(table, recipe: Recipe, id_column: str | None) -> tuple[str, ...]:
+def resolve_variables(table, recipe: Recipe, id_column: str | None) -> tuple[str, ...]:
+    """The recipe's variables among ``table.numeric_columns`` (any object with them), in file order."""
     numeric = [c for c in table.numeric_columns if c != id_column]
     if recipe.variables is None:
         return tuple(numeric)

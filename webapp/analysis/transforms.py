@@ -11,8 +11,15 @@ __all__ = ["TRANSFORM_FUNCTIONS", "apply_transforms", "domain_reasons", "domain_
 TRANSFORM_FUNCTIONS = {"log10": np.log10, "ln": np.log, "log1p": np.log1p, "sqrt": np.sqrt}
 
 
-def apply_transforms(values: np.ndarray, variables, transforms, labels) -> None:
-    """Transform the columns of ``values`` in place; raises naming the first sample outside a transform's domain."""
+def apply_transforms(values: np.ndarray, variables, transforms, labels=None, *, where=None) -> None:
+    """Transform the columns of ``values`` in place; raises naming the first value outside a transform's domain.
+
+    ``labels`` name the rows (the first bad sample is named); ``where(row, value)``
+    may instead say where that value is, for rows that have no label yet.
+    """
+    if where is None and labels is not None:
+        def where(row, value):
+            return f" (first at sample '{labels[row]}': {value:g})"
     for j, (variable, transform) in enumerate(zip(variables, transforms)):
         if transform == "none":
             continue
@@ -20,10 +27,10 @@ def apply_transforms(values: np.ndarray, variables, transforms, labels) -> None:
         bad = domain_violations(column, transform)
         if bad.any():
             first = int(np.flatnonzero(bad)[0])
-            where = f" (first at sample '{labels[first]}': {column[first]:g})" if labels is not None else ""
+            place = where(first, column[first]) if where is not None else ""
             raise OrdinateError(
                 f"Cannot apply {transform} to '{variable}': {int(bad.sum())} value(s) are not "
-                f"{domain_words(transform)}{where}. "
+                f"{domain_words(transform)}{place}. "
                 "Choose another transform for this variable or fix the values."
             )
         with np.errstate(invalid="ignore", divide="ignore"):

@@ -173,7 +173,7 @@ def _run_analyze(args) -> int:
         return _run_analyze_long(args)
     if args.scheduler or args.workers is not None:
         raise OrdinateError("--scheduler and --workers apply to the Dask engine only; add --engine dask.")
-    from webapp.analysis.model_io import model_from_analysis, save_model
+    from webapp.analysis.model_io import model_from_analysis
     from webapp.analysis.pipeline import analyse, analysis_report
     from webapp.analysis.recipe import Recipe
     from webapp.analysis.spectra import parse_ranges
@@ -194,22 +194,12 @@ def _run_analyze(args) -> int:
     )
     analysis = analyse(table, recipe, args.components, args.confidence)
     report = analysis_report(analysis, table)
-    if args.group_column:
-        report["group_column"] = args.group_column
-    print(format_variance_table(report))
-    if args.json:
-        args.json.write_text(json.dumps(report, indent=1, ensure_ascii=False), encoding="utf-8")
-        print(f"Wrote the JSON report to {args.json}.")
-    if args.model:
-        save_model(model_from_analysis(analysis), args.model)
-        print(f"Wrote the reference model to {args.model} (score new samples with `ordinate project`).")
-    return 0
+    return _write_analysis(args, report, lambda: model_from_analysis(analysis))
 
 
 def _run_analyze_long(args) -> int:
     from types import SimpleNamespace
 
-    from webapp.analysis.model_io import save_model
     from webapp.analysis.recipe import Recipe
     from webapp.distributed.cluster import dask_client
     from webapp.distributed.engine import analyse_long, source_id_column
@@ -233,17 +223,26 @@ def _run_analyze_long(args) -> int:
     with dask_client(args.scheduler, args.workers) as client:
         analysis = analyse_long(source, recipe, client, components=args.components, confidence=args.confidence)
     report = long_report(analysis)
+    engine_line = (f"Dask engine: {report['n_samples']} samples from {report['parts']} part(s) in {report['partitions']} "
+          f"partition(s); parallel analysis on {report['parallel_analysis_rows']} of them"
+          f"{' (a uniform random sample)' if report['parallel_analysis_rows'] < report['n_samples'] else ''}.")
+    return _write_analysis(args, report, lambda: long_model(analysis), engine_line)
+
+
+def _write_analysis(args, report: dict, model, extra_line: str | None = None) -> int:
+    """Print the table, then write the JSON report and the model file if asked, and say so."""
+    from webapp.analysis.model_io import save_model
+
     if args.group_column:
         report["group_column"] = args.group_column
     print(format_variance_table(report))
-    print(f"Dask engine: {report['n_samples']} samples from {report['parts']} part(s) in {report['partitions']} "
-          f"partition(s); parallel analysis on {report['parallel_analysis_rows']} of them"
-          f"{' (a uniform random sample)' if report['parallel_analysis_rows'] < report['n_samples'] else ''}.")
+    if extra_line:
+        print(extra_line)
     if args.json:
         args.json.write_text(json.dumps(report, indent=1, ensure_ascii=False), encoding="utf-8")
         print(f"Wrote the JSON report to {args.json}.")
     if args.model:
-        save_model(long_model(analysis), args.model)
+        save_model(model(), args.model)
         print(f"Wrote the reference model to {args.model} (score new samples with `ordinate project`).")
     return 0
 

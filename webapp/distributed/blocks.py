@@ -28,7 +28,7 @@ from webapp.analysis.errors import OrdinateError
 from webapp.analysis.moments import Moments, block_moments, merge_moments
 from webapp.analysis.pca import PCAFit
 from webapp.analysis.pipeline import sample_statistics
-from webapp.analysis.transforms import TRANSFORM_FUNCTIONS, domain_violations, domain_words
+from webapp.analysis.transforms import TRANSFORM_FUNCTIONS, apply_transforms
 
 SHOWN_LABELS = 6
 
@@ -285,18 +285,7 @@ def _numbers(frame: pd.DataFrame, variables, path: str) -> np.ndarray:
 
 
 def _transform(values: np.ndarray, plan: Plan, path: str, rows: np.ndarray) -> None:
-    for j, (variable, transform) in enumerate(zip(plan.variables, plan.transforms)):
-        if transform == "none":
-            continue
-        column = values[:, j]
-        bad = domain_violations(column, transform)
-        if bad.any():
-            first = int(np.flatnonzero(bad)[0])
-            words = domain_words(transform)
-            raise OrdinateError(
-                f"Cannot apply {transform} to '{variable}': {int(bad.sum())} value(s) in the part '{path}' are not "
-                f"{words} (first at row {int(rows[first]) + 1} of that part: {column[first]:g}). "
-                "Choose another transform for this variable or fix the values."
-            )
-        with np.errstate(invalid="ignore", divide="ignore"):
-            values[:, j] = TRANSFORM_FUNCTIONS[transform](column)
+    def where(row, value):
+        return f" (in the part '{path}', first at row {int(rows[row]) + 1} of that part: {value:g})"
+
+    apply_transforms(values, plan.variables, plan.transforms, where=where)

@@ -31,7 +31,7 @@ from webapp.analysis.errors import OrdinateError
 from webapp.analysis.impute import divisors_from_summary
 from webapp.analysis.pca import PCAFit, fit_pca_from_cross_product
 from webapp.analysis.pipeline import control_limits, resolve_components, sample_advice
-from webapp.analysis.recipe import MIN_SAMPLES, Preprocessor, Recipe, require_shape
+from webapp.analysis.recipe import MIN_SAMPLES, Preprocessor, Recipe, require_shape, resolve_variables
 from webapp.analysis.selection import ComponentAdvice, advise_components
 from webapp.distributed import blocks
 from webapp.distributed.sources import Source, read_piece
@@ -85,7 +85,7 @@ def analyse_long(source: Source, recipe: Recipe, client, *, components="auto", c
         raise OrdinateError(f"The confidence level must be between 0 and 1 (for example 0.95); got {confidence}.")
     clock = _Clock()
     id_column = source_id_column(source, recipe.id_column)
-    variables = _variables(source, recipe, id_column)
+    variables = resolve_variables(source, recipe, id_column)
     plan = blocks.Plan(
         variables=variables,
         transforms=tuple(recipe.transform_for(v) for v in variables),
@@ -241,20 +241,6 @@ def _observed_means(source: Source, client, plan: blocks.Plan) -> np.ndarray:
 
 
 # --- recipe steps ------------------------------------------------------------------
-
-
-def _variables(source: Source, recipe: Recipe, id_column: str | None) -> tuple[str, ...]:
-    numeric = [c for c in source.numeric_columns if c != id_column]
-    if recipe.variables is None:
-        return tuple(numeric)
-    unknown = [v for v in recipe.variables if v not in numeric]
-    if unknown:
-        raise OrdinateError(
-            f"These variables are not numeric columns of the data: {_short_list(unknown)}. "
-            f"Numeric columns are: {_short_list(numeric)}."
-        )
-    chosen = set(recipe.variables)
-    return tuple(c for c in numeric if c in chosen)
 
 
 def _note_rows(summary: blocks.Summary, plan: blocks.Plan, recipe: Recipe, warnings: list[str]) -> None:
