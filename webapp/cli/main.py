@@ -175,23 +175,11 @@ def _run_analyze(args) -> int:
         raise OrdinateError("--scheduler and --workers apply to the Dask engine only; add --engine dask.")
     from webapp.analysis.model_io import model_from_analysis
     from webapp.analysis.pipeline import analyse, analysis_report
-    from webapp.analysis.recipe import Recipe
     from webapp.analysis.spectra import parse_ranges
 
     table = _read(args)
-    _check_column(table, args.group_column, "group")
-    recipe = Recipe(
-        variables=_chosen_variables(table, args.exclude_columns, args.id_column),
-        excluded_samples=tuple(args.exclude_samples),
-        transforms=_parse_transforms(args.transform, table),
-        missing=args.missing,
-        centring=args.centring,
-        scaling=args.scaling,
-        id_column=args.id_column,
-        ranges=parse_ranges(args.ranges) if args.ranges else (),
-        row_correction=args.row_correction,
-        savgol=_parse_savgol(args.savgol),
-    )
+    recipe = _recipe_from_options(args, table, ranges=parse_ranges(args.ranges) if args.ranges else (),
+                                  row_correction=args.row_correction, savgol=_parse_savgol(args.savgol))
     analysis = analyse(table, recipe, args.components, args.confidence)
     report = analysis_report(analysis, table)
     return _write_analysis(args, report, lambda: model_from_analysis(analysis))
@@ -200,7 +188,6 @@ def _run_analyze(args) -> int:
 def _run_analyze_long(args) -> int:
     from types import SimpleNamespace
 
-    from webapp.analysis.recipe import Recipe
     from webapp.distributed.cluster import dask_client
     from webapp.distributed.engine import analyse_long, source_id_column
     from webapp.distributed.report import long_model, long_report
@@ -210,16 +197,7 @@ def _run_analyze_long(args) -> int:
     # The recipe helpers read the columns of a table; the first rows of the first part stand for it.
     columns = SimpleNamespace(frame=source.head, numeric_columns=source.numeric_columns,
                               id_column=source_id_column(source, args.id_column))
-    _check_column(columns, args.group_column, "group")
-    recipe = Recipe(
-        variables=_chosen_variables(columns, args.exclude_columns, args.id_column),
-        excluded_samples=tuple(args.exclude_samples),
-        transforms=_parse_transforms(args.transform, columns),
-        missing=args.missing,
-        centring=args.centring,
-        scaling=args.scaling,
-        id_column=args.id_column,
-    )
+    recipe = _recipe_from_options(args, columns)
     with dask_client(args.scheduler, args.workers) as client:
         analysis = analyse_long(source, recipe, client, components=args.components, confidence=args.confidence)
     report = long_report(analysis)
@@ -227,6 +205,23 @@ def _run_analyze_long(args) -> int:
           f"partition(s); parallel analysis on {report['parallel_analysis_rows']} of them"
           f"{' (a uniform random sample)' if report['parallel_analysis_rows'] < report['n_samples'] else ''}.")
     return _write_analysis(args, report, lambda: long_model(analysis), engine_line)
+
+
+def _recipe_from_options(args, table, **spectral):
+    """The recipe the analyze options describe, checked against the columns of ``table``."""
+    from webapp.analysis.recipe import Recipe
+
+    _check_column(table, args.group_column, "group")
+    return Recipe(
+        variables=_chosen_variables(table, args.exclude_columns, args.id_column),
+        excluded_samples=tuple(args.exclude_samples),
+        transforms=_parse_transforms(args.transform, table),
+        missing=args.missing,
+        centring=args.centring,
+        scaling=args.scaling,
+        id_column=args.id_column,
+        **spectral,
+    )
 
 
 def _write_analysis(args, report: dict, model, extra_line: str | None = None) -> int:
