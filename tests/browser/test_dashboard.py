@@ -209,9 +209,15 @@ def _emit(dash_duo, graph_id, event, labels):
 
 def test_click_inspects_a_sample_and_lasso_leaves_samples_out(dash_duo, app, iris_csv):
     _open_with_iris(dash_duo, app, iris_csv)
+    dash_duo.driver.execute_script("window.scrollTo(0, 0)")
     _emit(dash_duo, "scores-graph", "plotly_click", ["F041"])
     dash_duo.wait_for_contains_text("#contributions", "What drives sample F041", timeout=TIMEOUT)
     assert "pick=F041" in dash_duo.driver.current_url
+    # The click leads somewhere visible: the contributions are scrolled into view.
+    _wait_for(lambda: dash_duo.driver.execute_script(
+        "const b = document.getElementById('contributions').getBoundingClientRect();"
+        "return b.top >= 0 && b.top < window.innerHeight;"))
+    dash_duo.driver.execute_script("window.scrollTo(0, 0)")  # back up to the scores plot
 
     _emit(dash_duo, "scores-graph", "plotly_selected", ["F000", "F001", "F002"])
     dash_duo.find_element("#exclude-selected").click()
