@@ -9,9 +9,8 @@ Results are printed and appended to tests/bench/results.jsonl; docs/performance.
 import numpy as np
 import pytest
 import scipy.signal
-from sklearn.decomposition import PCA
 
-from tests.bench.test_engine_bench import _median_seconds, _record
+from tests.bench.test_engine_bench import _median_seconds, _record, compare_top_20_with_scikit_learn
 from webapp.analysis.pca import fit_pca
 from webapp.analysis.spectra import SpectralSteps
 
@@ -27,18 +26,7 @@ def _spectra(n, p, seed):
 @pytest.mark.parametrize("shape", [(500, 8_000), (50, 20_000)])
 def test_wide_spectra_top_20_vs_fastest_scikit_learn_solver(shape):
     X = _spectra(*shape, seed=shape[1])
-    ours = fit_pca(X, 20, centre=True)
-    exact = PCA(20, svd_solver="full").fit(X)
-    np.testing.assert_allclose(ours.eigenvalues[:20], exact.explained_variance_, rtol=1e-8)
-    t_ours = _median_seconds(lambda: fit_pca(X, 20, centre=True), 3)
-    sklearn = {
-        solver: _median_seconds(lambda: PCA(20, svd_solver=solver, random_state=0).fit_transform(X), 3)
-        for solver in ("randomized", "arpack", "full")
-    }
-    fastest = min(sklearn, key=sklearn.get)
-    _record(f"wide spectra {shape[0]}x{shape[1]} top 20", ours_s=t_ours, ours_solver=ours.solver,
-            sklearn_s=sklearn, fastest=fastest, ratio=t_ours / sklearn[fastest], target=1.0,
-            met=t_ours <= sklearn[fastest])
+    compare_top_20_with_scikit_learn(X, f"wide spectra {shape[0]}x{shape[1]} top 20", ("randomized", "arpack", "full"))
 
 
 def test_snv_and_savitzky_golay_cost_beside_the_fit():

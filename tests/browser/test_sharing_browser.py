@@ -61,11 +61,16 @@ def test_save_view_and_open_its_short_link_in_a_fresh_browser(dash_duo, app_and_
         fresh.quit()
 
 
-def test_present_mode_steps_through_three_views_by_keyboard(dash_duo, app_and_token):
-    app, services, token = app_and_token
+def _save_three_views(services, token) -> None:
+    """Three slides of iris: autoscaled, covariance (92.46 % on PC1) and Pareto."""
     for title, scaling in (("Autoscaled", "unit"), ("Covariance", "none"), ("Pareto", "pareto")):
         vm.save_view(services, ViewState(dataset=token, scaling=scaling), title=title, note=f"{title} note",
                      author="", parent=None)
+
+
+def test_present_mode_steps_through_three_views_by_keyboard(dash_duo, app_and_token):
+    app, services, token = app_and_token
+    _save_three_views(services, token)
     dash_duo.start_server(app)
     dash_duo.driver.get(dash_duo.server_url + "/?" + to_query(ViewState(dataset=token, present=True)))
     dash_duo.wait_for_contains_text("#saved-banner", "Autoscaled", timeout=TIMEOUT)
@@ -129,9 +134,7 @@ def _follow_state(driver) -> tuple:
 
 def test_attendees_follow_the_presenter_read_only_and_see_the_end(dash_duo, app_and_token):
     app, services, token = app_and_token
-    for title, scaling in (("Autoscaled", "unit"), ("Covariance", "none"), ("Pareto", "pareto")):
-        vm.save_view(services, ViewState(dataset=token, scaling=scaling), title=title, note=f"{title} note",
-                     author="", parent=None)
+    _save_three_views(services, token)
     dash_duo.start_server(app)
     presenter = dash_duo.driver
     presenter.get(dash_duo.server_url + "/?" + to_query(ViewState(dataset=token, present=True)))
