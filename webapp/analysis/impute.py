@@ -65,19 +65,20 @@ def iterative_pca_impute(
     if not missing.any():
         return ImputationResult(values.copy(), 0, 0, True, np.zeros(values.shape[1], dtype=int))
     # One power of two for all variables: an exact division that changes no
-    # model (every scaling treats a common factor alike), so that data in
-    # other units take the same rounds through the same floating-point range.
-    common = _common_power_of_two(_observed_spread(values))
-    result = _impute_in_common_unit(values / common, missing, centring, scaling, n_components, tolerance,
-                                    max_iterations)
+    # model (every scaling treats a common factor alike), so that data in other
+    # units pass through the same floating-point range.
+    spread = _observed_spread(values)
+    common = _common_power_of_two(spread)
+    result = _impute_in_common_unit(values / common, spread / common, missing, centring, scaling, n_components,
+                                    tolerance, max_iterations)
     result.values[...] *= common  # in place: the result is frozen, its array is ours
     return result
 
 
-def _impute_in_common_unit(values, missing, centring, scaling, n_components, tolerance, max_iterations):
+def _impute_in_common_unit(values, spread, missing, centring, scaling, n_components, tolerance, max_iterations):
     filled = np.where(missing, np.nanmean(values, axis=0), values)
     k = n_components or _kaiser_components(filled, centring, scaling)
-    unit = _observed_spread(values)[np.nonzero(missing)[1]]
+    unit = spread[np.nonzero(missing)[1]]
 
     def update(guess: np.ndarray) -> np.ndarray:
         filled[missing] = guess
