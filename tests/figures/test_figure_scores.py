@@ -243,7 +243,7 @@ def test_ellipse_dash_by_level_and_hotelling_style(iris):
     # k = 1 and 3: 39.3 % and 98.9 % (chi-square, 2 df).
     assert f"{100 * stats.chi2.cdf(1.0, 2):.1f} %" in lines[0].name
     assert f"{100 * stats.chi2.cdf(9.0, 2):.1f} %" in lines[2].name
-    assert lines[3].name.startswith("T² 95 % ellipse · observed ")
+    assert lines[3].name.startswith("T² 95 % ellipse of these 2 PCs · observed ")
     assert lines[3].line.color == lines[0].line.color  # neutral, shared with all-sample ellipses
 
 
@@ -397,3 +397,13 @@ def test_arrow_cap_keeps_the_longest_and_says_so():
     assert set(arrows.variables) == expected and arrows.left_out == 10
     assert "Showing the 20 strongest of 30 variables" in arrows.caption
     assert "longest" not in loading_arrows(loadings, names, np.array([2.0, 1.0]), "distance", 3.0).caption
+
+
+def test_the_correlation_biplot_caption_says_correlations_only_for_autoscaled_data(iris):
+    # Gabriel (1971): loading × √eigenvalue is the covariance of a variable with a component's
+    # standardised scores; it is their correlation only when each variable has unit variance.
+    P, lam = iris["loadings"][:, :2], iris["eigenvalues"][:2]
+    autoscaled = loading_arrows(P, iris["variables"], lam, "correlation", 3.0, autoscaled=True).caption
+    raw = loading_arrows(P, iris["variables"], lam, "correlation", 3.0, autoscaled=False).caption
+    assert "correlations with the two components" in autoscaled and "not correlations" not in autoscaled
+    assert "covariance" in raw and "not correlations" in raw

@@ -111,15 +111,21 @@ class LoadingArrows:
     scaling: str
     factor: float
     left_out: int = 0  # shorter arrows not drawn (see ``max_arrows``)
+    autoscaled: bool = False  # the data were mean-centred and scaled to unit variance
 
     @property
     def caption(self) -> str:
         """One sentence that states the scaling and the stretch factor (plain text)."""
         s = f"{self.factor:.3g}"
-        if self.scaling == "correlation":
+        if self.scaling == "correlation" and self.autoscaled:
             text = (
-                f"Correlation biplot: arrows are variable–component correlations "
-                f"(loading × √eigenvalue; correlations for autoscaled data) × {s}. "
+                f"Correlation biplot: arrows are each variable's correlations with the two components "
+                f"(loading × √eigenvalue) × {s}. Compare arrows with each other, not with the sample positions."
+            )
+        elif self.scaling == "correlation":
+            text = (
+                f"Correlation biplot: arrows are loading × √eigenvalue × {s}, each variable's covariance "
+                f"with the two components (the data are not autoscaled, so these are not correlations). "
                 f"Compare arrows with each other, not with the sample positions."
             )
         else:
@@ -142,6 +148,7 @@ def loading_arrows(
     *,
     fill: float = ARROW_FILL,
     max_arrows: int | None = None,
+    autoscaled: bool = False,
 ) -> LoadingArrows:
     """Biplot arrows for the two plotted components (Gabriel 1971).
 
@@ -157,6 +164,8 @@ def loading_arrows(
         factor s = fill × score_extent / (longest unstretched arrow) is the
         same for all arrows and is recorded in ``factor``.
     max_arrows : keep only this many of the longest arrows (None keeps all).
+    autoscaled : whether the data were mean-centred and scaled to unit variance;
+        only then are correlation-biplot arrows correlations (the caption says which).
     """
     if scaling not in SCALINGS:
         raise OrdinateError(f"The biplot scaling must be one of {', '.join(SCALINGS)}; got {scaling!r}.")
@@ -193,7 +202,7 @@ def loading_arrows(
     dx.setflags(write=False)
     dy.setflags(write=False)
     return LoadingArrows(variables=names, dx=dx, dy=dy, scaling=scaling, factor=factor,
-                         left_out=total - len(names))
+                         left_out=total - len(names), autoscaled=bool(autoscaled))
 
 
 # --------------------------------------------------------------------------
@@ -204,13 +213,14 @@ def ellipse_name(ellipse: "Ellipse") -> str:
     """Legend text of an ellipse, stating its expected and observed coverage.
 
     Sigma ellipse: '2σ ellipse · expected 86.5 % · observed 84.2 % inside'.
-    Hotelling ellipse: 'T² 95 % ellipse · observed 96.0 % inside'.
+    Hotelling ellipse: 'T² 95 % ellipse of these 2 PCs · observed 96.0 % inside' (the
+    diagnostics' T² uses all K components kept; the ellipse only the two plotted).
     """
     observed = ""
     if ellipse.observed_fraction is not None:
         observed = f" · observed {percent(ellipse.observed_fraction)} inside"
     if ellipse.kind == "hotelling":
-        return f"T² {level_percent(ellipse.level)} ellipse{observed}"
+        return f"T² {level_percent(ellipse.level)} ellipse of these 2 PCs{observed}"
     return f"{ellipse.level:g}σ ellipse · expected {percent(ellipse.expected_coverage)}{observed}"
 
 

@@ -88,10 +88,10 @@ _FORMULA_STARTS = frozenset("=+-@\uff1d\uff0b\uff0d\uff20")
 _QUOTE = "'"
 
 _NOT_FOUND_MESSAGE = (
-    "No dataset with this link code is on this server. It may have been deleted; "
+    "No dataset with this dataset code is on this server. It may have been deleted; "
     "ask the person who shared the link for a new one."
 )
-_NO_VIEW_MESSAGE = "No saved view with this link code is on this server. It may have been deleted."
+_NO_VIEW_MESSAGE = "No saved view with this short link is on this server. It may have been deleted."
 _UNKNOWN_KIND_MESSAGE = "There is no such download. Available: " + ", ".join(EXPORT_FILES) + "."
 _SERVER_PROBLEM_MESSAGE = (
     "The download could not be prepared because of a problem on the server. "
@@ -290,7 +290,7 @@ def batch_frame(services, resolved, state: ViewState) -> pd.DataFrame:
 
     record = services.store.dataset(state.batch) if state.batch else None
     if record is None:
-        raise OrdinateError("This view scores no new batch, or the batch is no longer stored.")
+        raise OrdinateError("This view scores no new samples, or their file is no longer stored.")
     batch, notices = score_batch(services, record, resolved.fitted, view_diagnostics(resolved, state))
     if batch is None:
         raise OrdinateError(notices[0])
