@@ -317,15 +317,54 @@ def test_highlighted_sample_gets_a_ring(iris):
     assert not [t for t in _figure(iris, highlighted="nobody").data if t.name == "Picked sample"]
 
 
+def _sample_labels(fig):
+    return [a for a in fig.layout.annotations if a.name == "sample-label"]
+
+
 def test_labels_are_written_only_up_to_the_limit():
-    x, y, labels = _cloud(20)
-    fig = scores_figure(x=x, y=y, labels=labels, groups=None, x_title="a", y_title="b", show_labels=True)
-    assert fig.data[0].mode == "markers+text"
-    assert list(fig.data[0].text) == labels.tolist()
+    x, y, labels = _cloud(8)
+    x = x * 10  # eight points far apart: every label finds a place
+    fig = scores_figure(x=x, y=y * 10, labels=labels, groups=None, x_title="a", y_title="b", show_labels=True)
+    assert fig.data[0].mode == "markers"  # written as placed annotations, not as trace text
+    assert sorted(a.text for a in _sample_labels(fig)) == sorted(labels.tolist())
+    assert "left out" not in _notes(fig)
     x, y, labels = _cloud(LABEL_LIMIT + 1)
     fig = scores_figure(x=x, y=y, labels=labels, groups=None, x_title="a", y_title="b", show_labels=True)
-    assert fig.data[0].mode == "markers"
+    assert _sample_labels(fig) == []
     assert "labels are hidden" in _notes(fig)
+
+
+def _pixel_boxes(fig, annotations, size):
+    from webapp.figures.arrow_labels import NOMINAL_PLOT_PX
+    from webapp.figures.label_placement import PlotFrame, text_box
+
+    frame = PlotFrame(tuple(fig.layout.xaxis.range), tuple(fig.layout.yaxis.range), *NOMINAL_PLOT_PX[("scores", False)])
+    sx, sy = frame.pixels_per_unit
+    boxes = []
+    for a in annotations:
+        w, h = text_box(a.text, size)
+        cx, cy = (a.x - frame.x_range[0]) * sx, (a.y - frame.y_range[0]) * sy
+        boxes.append((cx - w / 2, cy - h / 2, cx + w / 2, cy + h / 2))
+    return boxes
+
+
+def _overlapping_pairs(boxes):
+    return [(i, j) for i in range(len(boxes)) for j in range(i + 1, len(boxes))
+            if boxes[i][0] < boxes[j][2] and boxes[j][0] < boxes[i][2]
+            and boxes[i][1] < boxes[j][3] and boxes[j][1] < boxes[i][3]]
+
+
+def test_sample_labels_and_arrow_names_never_overlap_and_the_left_out_are_counted(iris):
+    # Iris (Fisher 1936, via scikit-learn): 150 samples in a crowded cloud, with the four arrows.
+    arrows = loading_arrows(iris["loadings"][:, :2], iris["variables"], iris["eigenvalues"][:2], "correlation",
+                            float(np.abs(iris["scores"][:, :2]).max()))
+    fig = _figure(iris, arrows=arrows, show_labels=True)
+    size = fig.layout.annotations[-1].font.size
+    names = [a for a in fig.layout.annotations if a.name == "arrow-label"]
+    labels = _sample_labels(fig)
+    assert len(names) == 4 and 0 < len(labels) < 150
+    assert _overlapping_pairs(_pixel_boxes(fig, names + labels, size)) == []
+    assert f"{150 - len(labels)} of 150 sample labels are left out" in _notes(fig)
 
 
 def test_user_text_is_escaped_everywhere_but_labels_map_back_raw():

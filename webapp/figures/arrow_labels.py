@@ -17,7 +17,11 @@ from webapp.figures.label_placement import PlacedLabel, PlotFrame, place_labels
 from webapp.figures.text import escape_text
 from webapp.figures.theme import MUTED_TEXT_COLOUR, TEXT_COLOUR, Style
 
-__all__ = ["ARROW_COLOUR", "NOMINAL_PLOT_PX", "arrow_annotations", "data_range", "leader_line"]
+__all__ = ["ARROW_COLOUR", "NOMINAL_PLOT_PX", "arrow_annotations", "data_range", "leader_line",
+           "point_label_annotations"]
+
+#: A sample label stays within this many rings (about 1.2 label heights) of its point, or is left out.
+POINT_LABEL_RINGS = 3
 
 ARROW_COLOUR = "#4A4F55"
 
@@ -54,12 +58,13 @@ def arrow_annotations(
     colour: str = ARROW_COLOUR,
     *,
     obstacles: Sequence[tuple[float, float, float, float]] = (),
-) -> tuple[list[dict], list[dict]]:
-    """Annotations (an arrow from the origin to (dx, dy), then the name) and leader-line shapes.
+) -> tuple[list[dict], list[dict], list[tuple[float, float, float, float]]]:
+    """Annotations (an arrow from the origin to (dx, dy), then the name), leader-line shapes, name boxes.
 
     Names are centred on the places found by ``place_labels`` in ``frame``;
     the arrows come first, then the names, in the order of ``variables``.
-    ``obstacles``: boxes in the frame's pixels that names keep clear of.
+    ``obstacles``: boxes in the frame's pixels that names keep clear of; the
+    names' own boxes (same units) are returned for labels placed after them.
     """
     tips_x, tips_y = np.asarray(dx, dtype=np.float64), np.asarray(dy, dtype=np.float64)
     names = [str(v) for v in variables]
@@ -81,7 +86,40 @@ def arrow_annotations(
             font=dict(size=style.label_size, color=TEXT_COLOUR),
             bgcolor="rgba(255,255,255,0.78)", borderpad=1,
         ))
-    return arrows + labels, leaders
+    return arrows + labels, leaders, [frame.pixel_box(label.box) for label in placed]
+
+
+def point_label_annotations(
+    x: np.ndarray,
+    y: np.ndarray,
+    labels: Sequence[str],
+    colours: Sequence[str],
+    style: Style,
+    frame: PlotFrame,
+    *,
+    obstacles: Sequence[tuple[float, float, float, float]] = (),
+) -> tuple[list[dict], int]:
+    """Sample labels beside their points, clear of each other, of every point and of ``obstacles``.
+
+    A label with no free place near its point is left out rather than drawn over
+    another (the count is returned, so the figure can say so); outer points are
+    placed first. Points with a missing coordinate get no label.
+    """
+    xs, ys = np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64)
+    finite = np.flatnonzero(np.isfinite(xs) & np.isfinite(ys))
+    sx, sy = frame.pixels_per_unit
+    half = style.marker_size / 2 + 1.0
+    px, py = (xs[finite] - frame.x_range[0]) * sx, (ys[finite] - frame.y_range[0]) * sy
+    points = [(a - half, b - half, a + half, b + half) for a, b in zip(px.tolist(), py.tolist())]
+    placed = place_labels(xs[finite], ys[finite], [str(labels[i]) for i in finite], style.label_size, frame,
+                          obstacles=[*obstacles, *points], gap=1.0 + half, rings=POINT_LABEL_RINGS,
+                          shafts=False, skip_crowded=True,
+                          origin=(float(np.mean(xs[finite])), float(np.mean(ys[finite]))) if finite.size else (0, 0))
+    notes = [dict(
+        name="sample-label", x=label.x, y=label.y, xref="x", yref="y", xanchor="center", yanchor="middle",
+        text=escape_text(label.text), showarrow=False, font=dict(size=style.label_size, color=str(colours[i])),
+    ) for i, label in zip(finite.tolist(), placed) if not label.crowded]
+    return notes, len(xs) - len(notes)
 
 
 def leader_line(label: PlacedLabel) -> dict:
