@@ -1,4 +1,4 @@
-"""Arrows from the origin with their names placed clear of each other (biplot, correlation circle).
+"""Names written inside a plot, clear of each other: arrow names (biplot, correlation circle) and sample labels.
 
 The names are placed by :func:`webapp.figures.label_placement.place_labels`
 in a nominal plot area (:data:`NOMINAL_PLOT_PX`), a size the drawn plot
@@ -9,6 +9,7 @@ joined to it by a thin leader line (a layout shape).
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Sequence
 
 import numpy as np
@@ -18,7 +19,7 @@ from webapp.figures.text import escape_text
 from webapp.figures.theme import MUTED_TEXT_COLOUR, TEXT_COLOUR, Style
 
 __all__ = ["ARROW_COLOUR", "NOMINAL_PLOT_PX", "arrow_annotations", "data_range", "leader_line",
-           "point_label_annotations"]
+           "point_label_annotations", "placed_text", "PlacedText"]
 
 #: A sample label stays within this many rings (about 1.2 label heights) of its point, or is left out.
 POINT_LABEL_RINGS = 3
@@ -128,3 +129,52 @@ def leader_line(label: PlacedLabel) -> dict:
     return dict(type="line", xref="x", yref="y", layer="above",
                 x0=label.anchor_x, y0=label.anchor_y, x1=end_x, y1=end_y,
                 line=dict(color=MUTED_TEXT_COLOUR, width=0.8))
+
+
+@dataclass(frozen=True)
+class PlacedText:
+    """Axis ranges fitted to what is drawn, and the names written inside them."""
+
+    x_range: tuple[float, float] | None
+    y_range: tuple[float, float] | None
+    annotations: list
+    shapes: list
+    hidden_labels: int = 0
+
+
+def placed_text(xs, ys, labels, colours, ellipses, arrows, batch, rings, picked_text, style, presentation):
+    """Names placed clear of each other: the picked sample first, then arrow names, then sample labels.
+
+    Axes are fitted to points, ellipses, arrows and new samples, so every name can be
+    placed inside them; an equal aspect ratio then widens one of the two ranges.
+    """
+    x_range = data_range([xs, *(e.x for e in ellipses), *([arrows.dx] if arrows else []),
+                          *([batch.x] if batch is not None else [])])
+    y_range = data_range([ys, *(e.y for e in ellipses), *([arrows.dy] if arrows else []),
+                          *([batch.y] if batch is not None else [])])
+    if x_range is None or y_range is None:
+        return PlacedText(None, None, [], [])
+    width, height = NOMINAL_PLOT_PX[("scores", presentation)]
+    frame = PlotFrame(x_range=x_range, y_range=y_range, width_px=width, height_px=height)
+    annotations, shapes, taken = [], [], []
+    if rings:  # the picked sample named at its point: the click's feedback where the eye is
+        x_at, y_at = float(rings[0].x[0]), float(rings[0].y[0])
+        # Bold and framed: estimated a little larger than plain text; kept just outside the ring.
+        (label,) = place_labels([x_at], [y_at], [picked_text], style.label_size * 1.15, frame, origin=(x_at, y_at),
+                                gap=style.marker_size * 1.5)
+        annotations.append(dict(
+            name="picked-label", x=label.x, y=label.y, xref="x", yref="y", xanchor="center", yanchor="middle",
+            text=f"<b>{escape_text(picked_text)}</b>", showarrow=False,
+            font=dict(size=style.label_size, color=TEXT_COLOUR),
+            bgcolor="rgba(255,255,255,0.92)", bordercolor=TEXT_COLOUR, borderwidth=1, borderpad=2))
+        shapes += [leader_line(label)] if label.leader else []
+        taken.append(frame.pixel_box(label.box))
+    if arrows is not None:
+        arrow_notes, leaders, boxes = arrow_annotations(arrows.variables, arrows.dx, arrows.dy, style, frame,
+                                                        obstacles=taken)
+        annotations, shapes, taken = annotations + arrow_notes, shapes + leaders, taken + boxes
+    hidden = 0
+    if labels is not None:
+        point_notes, hidden = point_label_annotations(xs, ys, labels, colours, style, frame, obstacles=taken)
+        annotations += point_notes
+    return PlacedText(x_range, y_range, annotations, shapes, hidden)

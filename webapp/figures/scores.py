@@ -48,16 +48,9 @@ from webapp.figures._points import (
     point_trace,
     resolve_groups,
 )
-from webapp.figures.arrow_labels import (
-    NOMINAL_PLOT_PX,
-    arrow_annotations,
-    data_range,
-    leader_line,
-    point_label_annotations,
-)
-from webapp.figures.label_placement import PlotFrame, place_labels
+from webapp.figures.arrow_labels import placed_text
 from webapp.figures.palette import ALL_SAMPLES_GROUP, NEUTRAL_COLOUR, GroupStyle
-from webapp.figures.text import count_text, escape_text, level_percent, percent, template_literal
+from webapp.figures.text import count_text, level_percent, percent, template_literal
 from webapp.figures.theme import TEXT_COLOUR, Style, axis_style, new_figure, style_for
 
 if TYPE_CHECKING:  # the figures only read the fields of these results
@@ -422,7 +415,7 @@ def scores_figure(
 
     rings = picked_ring(xs, ys, label_array, highlighted, style, batch)
     colours = np.array([styles[g].colour for g in names], dtype=object) if label_text else None
-    placed = _placed_text(xs, ys, label_array if label_text else None, colours, ellipses, arrows, batch, rings,
+    placed = placed_text(xs, ys, label_array if label_text else None, colours, ellipses, arrows, batch, rings,
                           f"{highlighted}" + (f" · {highlight_note}" if highlight_note else ""), style, presentation)
     if placed.hidden_labels:
         notes.append(f"{count_text(placed.hidden_labels)} of {count_text(n)} sample labels are left out where "
@@ -502,51 +495,3 @@ def _ring_trace(x, y, labels, highlighted: str, style: Style) -> go.Scatter | No
         hoverinfo="skip",
     )
 
-
-@dataclass(frozen=True)
-class _PlacedText:
-    """Axis ranges fitted to what is drawn, and the names written inside them."""
-
-    x_range: tuple[float, float] | None
-    y_range: tuple[float, float] | None
-    annotations: list
-    shapes: list
-    hidden_labels: int = 0
-
-
-def _placed_text(xs, ys, labels, colours, ellipses, arrows, batch, rings, picked_text, style, presentation):
-    """Names placed clear of each other: the picked sample first, then arrow names, then sample labels.
-
-    Axes are fitted to points, ellipses, arrows and new samples, so every name can be
-    placed inside them; an equal aspect ratio then widens one of the two ranges.
-    """
-    x_range = data_range([xs, *(e.x for e in ellipses), *([arrows.dx] if arrows else []),
-                          *([batch.x] if batch is not None else [])])
-    y_range = data_range([ys, *(e.y for e in ellipses), *([arrows.dy] if arrows else []),
-                          *([batch.y] if batch is not None else [])])
-    if x_range is None or y_range is None:
-        return _PlacedText(None, None, [], [])
-    width, height = NOMINAL_PLOT_PX[("scores", presentation)]
-    frame = PlotFrame(x_range=x_range, y_range=y_range, width_px=width, height_px=height)
-    annotations, shapes, taken = [], [], []
-    if rings:  # the picked sample named at its point: the click's feedback where the eye is
-        x_at, y_at = float(rings[0].x[0]), float(rings[0].y[0])
-        # Bold and framed: estimated a little larger than plain text; kept just outside the ring.
-        (label,) = place_labels([x_at], [y_at], [picked_text], style.label_size * 1.15, frame, origin=(x_at, y_at),
-                                gap=style.marker_size * 1.5)
-        annotations.append(dict(
-            name="picked-label", x=label.x, y=label.y, xref="x", yref="y", xanchor="center", yanchor="middle",
-            text=f"<b>{escape_text(picked_text)}</b>", showarrow=False,
-            font=dict(size=style.label_size, color=TEXT_COLOUR),
-            bgcolor="rgba(255,255,255,0.92)", bordercolor=TEXT_COLOUR, borderwidth=1, borderpad=2))
-        shapes += [leader_line(label)] if label.leader else []
-        taken.append(frame.pixel_box(label.box))
-    if arrows is not None:
-        arrow_notes, leaders, boxes = arrow_annotations(arrows.variables, arrows.dx, arrows.dy, style, frame,
-                                                        obstacles=taken)
-        annotations, shapes, taken = annotations + arrow_notes, shapes + leaders, taken + boxes
-    hidden = 0
-    if labels is not None:
-        point_notes, hidden = point_label_annotations(xs, ys, labels, colours, style, frame, obstacles=taken)
-        annotations += point_notes
-    return _PlacedText(x_range, y_range, annotations, shapes, hidden)
