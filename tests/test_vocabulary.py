@@ -77,3 +77,13 @@ def test_confidence_levels_are_written_one_way():
                 if re.search(r"\d%(?![{(sdfgi])", text) and not re.fullmatch(r"\d+%", text.strip())
                 and "box-sizing" not in text]  # style sheets
     assert unspaced == []
+
+
+def test_the_docs_for_users_say_preprocessing_not_recipe():
+    # To formulation engineers a recipe is the product's formula. methods.md and performance.md
+    # describe the code (its Recipe class) and may name it; code names in backticks are skipped.
+    users_docs = ("README.md", "docs/cli.md", "docs/exports.md", "docs/url-state.md", "docs/deployment.md",
+                  "docs/model-format.md")
+    found = [where for where, text in _sources() if where.split(":")[0] in users_docs
+             and re.search(r"\brecipes?\b", text, re.IGNORECASE)]
+    assert found == []
