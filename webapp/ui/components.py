@@ -224,7 +224,7 @@ def manage_box(link: str) -> html.Div:
         html.H3("Private manager link"),
         html.P("You uploaded this dataset from this browser. This link renames or deletes it with all its "
                "saved views; keep it to yourself, do not share it like a view link."),
-        html.A("Manage this dataset", href=link, className="small-button", target="_blank", rel="noopener"),
+        html.A("Open the manager page", href=link, className="small-button", target="_blank", rel="noopener"),
     ])
 
 
