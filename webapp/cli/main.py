@@ -56,6 +56,9 @@ def _parser() -> argparse.ArgumentParser:
     _add_serve(commands)
     _add_report(commands)
     _add_datasets(commands)
+    from webapp.cli.monitor import add_monitor_commands
+
+    add_monitor_commands(commands, _add_data_dir)
     return parser
 
 
@@ -111,6 +114,9 @@ def _add_project(commands) -> None:
     _add_layout(cmd)
     cmd.add_argument("--confidence", type=float, help="confidence for T² and Q limits (default: the model's)")
     cmd.add_argument("--json", type=Path, metavar="OUT", help="write scores, T² and Q as JSON (default: print them only)")
+    cmd.add_argument("--csv", type=Path, metavar="OUT",
+                     help="write per-sample scores, T², Q, both limits and flags as CSV, safe to open in a "
+                          "spreadsheet (default: not written)")
     cmd.set_defaults(run=_run_project)
 
 
@@ -267,6 +273,12 @@ def _run_project(args) -> int:
     if args.json:
         args.json.write_text(json.dumps(report, indent=1, ensure_ascii=False), encoding="utf-8")
         print(f"Wrote the JSON report to {args.json}.")
+    if args.csv:
+        from webapp.web.exports import projection_frame, to_safe_csv
+
+        confidence = model.confidence if args.confidence is None else args.confidence
+        args.csv.write_text(to_safe_csv(projection_frame(projection, confidence)), encoding="utf-8")
+        print(f"Wrote the CSV table to {args.csv}.")
     return 0
 
 
