@@ -45,3 +45,34 @@ def lock_view_state(services, state, name: str, *, source_view_id: str | None = 
         model, name=name, reference=period, data_fingerprint=resolved.record.content_hash,
         source_view_id=source_view_id, dataset_token=resolved.record.token,
         order_column=order_column, label_column=resolved.table.id_column)
+
+
+#: Store settings of the demo's locked reference model (claimed by the first worker).
+DEMO_MONITORING_SETTING = "demo-monitoring-code"
+DEMO_MODEL_NAME = "Oat dessert release model (synthetic demo)"
+
+
+def seed_demo_monitoring(services, folder) -> str | None:
+    """Lock the demo dataset's default view as a reference model and add the demo's weekly uploads.
+
+    Once per data directory (the first worker to claim it does the work); returns the
+    monitoring code, or None when there is no demo dataset or no upload files.
+    """
+    from pathlib import Path
+
+    from webapp.state import ViewState
+    from webapp.store.services import DEMO_SETTING
+
+    token = services.store.get_setting(DEMO_SETTING)
+    files = sorted(Path(folder).glob("*.csv")) if folder else []
+    if not token or not files:
+        return None
+    done = services.store.get_setting(DEMO_MONITORING_SETTING)
+    if done or not services.store.add_if_absent(DEMO_MONITORING_SETTING + "-claim", "1"):
+        return done
+    locked, _ = lock_view_state(services, ViewState(dataset=token), DEMO_MODEL_NAME, order_column="made_on")
+    for path in files:
+        services.reference_models.add_upload(locked.code, path.read_bytes(), path.name,
+                                             uploaded_by="synthetic demo", order_column="made_on")
+    services.store.set_setting(DEMO_MONITORING_SETTING, locked.code)
+    return locked.code
