@@ -77,3 +77,27 @@ def test_the_run_rule_catches_the_planted_drift_and_nothing_before_it(seeded):
 def _drifting_batches(gen) -> set[str]:
     return {b for week, table in zip(gen.WEEKS, gen.simulate()) if week >= gen.DRIFT_FROM_WEEK
             for b in table["batch_id"]}
+
+
+def test_a_seed_cut_off_half_way_is_finished_by_the_next_start_and_a_busy_seed_is_left_alone(tmp_path):
+    from webapp.state import ViewState
+    from webapp.store.file_lock import FileLock
+    from webapp.ui.reference_locking import lock_view_state
+
+    services = create_services(AppConfig(data_dir=tmp_path / "data"))
+    ensure_demo(services)
+    token = services.store.get_setting("demo-token")
+    files = sorted((DEMO / "monitoring").glob("*.csv"))
+    # A worker killed after locking the model and adding three uploads: no completion note was written.
+    locked, _ = lock_view_state(services, ViewState(dataset=token), DEMO_MODEL_NAME, order_column="made_on")
+    for path in files[:3]:
+        services.reference_models.add_upload(locked.code, path.read_bytes(), path.name, order_column="made_on")
+    busy = FileLock(services.reference_models.root / "demo-seed.lock")
+    assert busy.acquire(timeout=0)
+    try:
+        assert seed_demo_monitoring(services) is None  # another worker is seeding: this one goes on starting
+    finally:
+        busy.release()
+    assert seed_demo_monitoring(services) == locked.code  # the default folder: demo_data/monitoring
+    assert [u.file_name for u in services.reference_models.uploads(locked.code)] == [p.name for p in files]
+    assert len(services.reference_models.all()) == 1

@@ -41,6 +41,12 @@ def test_monitor_appends_uploads_in_order_by_link_and_by_code(files, tmp_path, c
     fresh = ReferenceModelStore(tmp_path)
     assert [u.uploaded_by for u in fresh.uploads(locked.code)] == ["QC night shift", ""]
     assert list(fresh.frame(locked.code)["sample"]) == [*uploads[0]["wine"], *uploads[1]["wine"]]
+    with_run = uploads[2].copy()
+    with_run["run"] = range(len(with_run))
+    (tmp_path / "later-3.csv").write_bytes(csv_bytes(with_run))
+    assert main(["monitor", locked.code, str(tmp_path / "later-3.csv"), "--order-column", "run",
+                 "--data-dir", str(tmp_path)]) == 0
+    assert "upload order, because not every upload names the same order column" in capsys.readouterr().out
     assert main(["monitor", "A" * 24, str(folder / "later-1.csv"), "--data-dir", str(tmp_path)]) == 2
     assert "models list" in capsys.readouterr().err
 
@@ -83,6 +89,22 @@ def test_project_writes_a_csv_with_scores_limits_and_flags(files, tmp_path, caps
     np.testing.assert_allclose([float(r[4]) for r in rows[1:]], report["t2"], rtol=1e-15)
     assert {float(r[6]) for r in rows[1:]} == {report["t2_limit"]}
     assert [r[8] == "yes" for r in rows[1:]] == [v > report["t2_limit"] for v in report["t2"]]
+
+
+def test_project_csv_escapes_labels_that_a_spreadsheet_would_run_as_formulas(files, tmp_path):
+    folder, _, uploads = files
+    model_file, out_csv = tmp_path / "model.json", tmp_path / "scored.csv"
+    assert main(["analyze", str(folder / "reference.csv"), "--components", "3", "--model", str(model_file)]) == 0
+    tricky = uploads[2].head(4).copy()
+    # OWASP "CSV Injection": text starting with = + - @ is run as a formula; a leading quote makes it text.
+    tricky["wine"] = ['=HYPERLINK("http://x")', "@SUM(A1)", "-12", "W-ok"]
+    (tmp_path / "tricky.csv").write_bytes(csv_bytes(tricky))
+    assert main(["project", str(model_file), str(tmp_path / "tricky.csv"), "--csv", str(out_csv)]) == 0
+    text = out_csv.read_bytes().decode("utf-8")
+    assert text.startswith("\ufeff") and "\r\n" in text  # byte-order mark for Excel, RFC 4180 line ends
+    rows = list(csv.reader(io.StringIO(text.lstrip("\ufeff"))))
+    assert [r[0] for r in rows[1:]] == ['\'=HYPERLINK("http://x")', "'@SUM(A1)", "'-12", "W-ok"]
+    assert all(not r[1].startswith("'") for r in rows[1:])  # numbers, negative ones too, stay numbers
 
 
 def test_monitoring_links_and_codes_are_recognised():

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import os
 import signal
 import subprocess
@@ -110,13 +111,21 @@ _CHILD = textwrap.dedent("""
     data = Path({csv!r}).read_bytes()
     if {stage!r} == "before-rename":
         os.replace = lambda *a, **k: os.kill(os.getpid(), signal.SIGKILL)  # dies with the file written, not placed
+    if {stage!r} == "inside-transaction":
+        import diskcache
+        setitem = diskcache.Cache.__setitem__
+        def dying(self, key, value):  # the new upload list is written, its transaction not yet committed
+            setitem(self, key, value)
+            if key[0] == "uploads":
+                os.kill(os.getpid(), signal.SIGKILL)
+        diskcache.Cache.__setitem__ = dying
     store.add_upload({code!r}, data, "later.csv", uploaded_by="pipeline")
     print("added", flush=True)
     os.kill(os.getpid(), signal.SIGKILL)  # no clean shutdown of diskcache or SQLite
 """)
 
 
-@pytest.mark.parametrize("stage", ["after-return", "before-rename"])
+@pytest.mark.parametrize("stage", ["after-return", "before-rename", "inside-transaction"])
 def test_an_upload_survives_a_kill_9_or_is_not_there_at_all(tmp_path, wine, stage):
     store = ReferenceModelStore(tmp_path)
     locked, _ = _lock(store, wine)
@@ -132,8 +141,52 @@ def test_an_upload_survives_a_kill_9_or_is_not_there_at_all(tmp_path, wine, stag
         assert upload.uploaded_by == "pipeline" and upload.sample_count == len(wine[2][0])
         assert list(fresh.frame(locked.code)["sample"]) == list(wine[2][0]["wine"])
     else:
+        # Killed while writing: no upload is visible, not even part of one (SQLite rolls the transaction back).
         assert "added" not in child.stdout and fresh.uploads(locked.code) == []
-        assert not any(p.suffix == ".csv" for p in fresh.file_dir.iterdir())  # only the temporary part, if any
+        assert len(fresh.frame(locked.code)) == 0
+        placed = [p for p in fresh.file_dir.iterdir() if p.suffix == ".csv"]
+        assert placed == ([] if stage == "before-rename" else [fresh.file_dir / f"{hashlib.sha256(csv.read_bytes()).hexdigest()}.csv"])
         fresh.add_upload(locked.code, csv.read_bytes(), "later.csv")  # the store still works
         assert len(fresh.uploads(locked.code)) == 1
+        assert list(fresh.frame(locked.code)["sample"]) == list(wine[2][0]["wine"])
     assert os.path.exists(fresh.index.directory)
+
+
+def test_an_order_column_sets_production_order_and_a_bad_one_is_refused_at_upload(tmp_path, wine):
+    store = ReferenceModelStore(tmp_path)
+    locked, _ = _lock(store, wine)
+    first, second = wine[2][0].copy(), wine[2][1].copy()
+    first["run"], second["run"] = range(100, 120), range(0, 20)  # the second file was made first
+    store.add_upload(locked.code, csv_bytes(first), "first.csv", order_column="run")
+    store.add_upload(locked.code, csv_bytes(second), "second.csv", order_column="run")
+    assert store.production_order_column(locked.code) == "run"
+    assert list(store.frame(locked.code)["sample"]) == [*second["wine"], *first["wine"]]
+    # Refused before anything is kept, so a kept upload never breaks the frame.
+    bad = second.copy()
+    bad["run"] = [*map(str, range(3)), "soon", *map(str, range(4, 20))]
+    with pytest.raises(OrdinateError, match="neither a number nor a date"):
+        store.add_upload(locked.code, csv_bytes(bad), "bad.csv", order_column="run")
+    dated = second.copy()
+    dated["run"] = [f"2026-04-{d:02d}" for d in range(1, 21)]
+    with pytest.raises(OrdinateError, match="earlier uploads hold numbers"):
+        store.add_upload(locked.code, csv_bytes(dated), "dated.csv", order_column="run")
+    assert len(store.uploads(locked.code)) == 2 and len(store.frame(locked.code)) == 40
+    # An upload without the order column: the frame falls back to upload order.
+    store.add_upload(locked.code, csv_bytes(wine[2][2]), "third.csv")
+    assert store.production_order_column(locked.code) is None
+    assert list(store.frame(locked.code)["sample"]) == [*first["wine"], *second["wine"], *wine[2][2]["wine"]]
+
+
+def test_removing_the_last_upload_of_some_bytes_deletes_the_file(tmp_path, wine):
+    store = ReferenceModelStore(tmp_path)
+    one, key_one = _lock(store, wine)
+    two, key_two = _lock(store, wine, name="Second model")
+    data = csv_bytes(wine[2][0])
+    a = store.add_upload(one.code, data, "same.csv")
+    b = store.add_upload(two.code, data, "same.csv")
+    (path,) = store.file_dir.glob("*.csv")
+    assert store.remove_upload(one.code, a.upload_id, key_one) and path.exists()  # still named by model two
+    assert not store.remove_upload(two.code, b.upload_id, key_one)  # another model's key
+    assert store.remove_upload(two.code, b.upload_id, key_two) and not path.exists()
+    again = store.add_upload(one.code, data, "same.csv")  # the same bytes can come back
+    assert list(store.upload_table(one.code, again.upload_id).sample_labels()) == list(wine[2][0]["wine"])

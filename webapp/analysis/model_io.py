@@ -18,6 +18,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
 from webapp.analysis import ENGINE_VERSION
 from webapp.analysis.diagnostics import hotelling_t2, model_q_limit, model_t2_limit
@@ -300,3 +301,24 @@ def _vector(values, length: int) -> np.ndarray:
     if array.shape != (length,):
         raise ValueError(f"expected {length} numbers, found {array.size}")
     return array
+
+
+def projection_frame(p, confidence: float) -> pd.DataFrame:
+    """New samples scored against a model (a :class:`Projection`): the table of the dashboard's
+    ``batch.csv`` and of ``ordinate project --csv``: scores, T², Q, both limits (T² for new samples) and flags."""
+    n = len(p.sample_labels)
+    columns: dict[str, object] = {"Sample": pd.Series(list(p.sample_labels), dtype=object)}
+    for a in range(p.scores.shape[1]):
+        name = f"PC{a + 1}"
+        columns[name] = np.asarray(p.scores[:, a], dtype=np.float64)
+    columns.update({
+        "T²": np.asarray(p.t2, dtype=np.float64),
+        "Q": np.asarray(p.q, dtype=np.float64),
+        "T² limit (new samples)": np.full(n, float(p.t2_limit)),
+        "Q limit": np.full(n, float(p.q_limit)),
+        "Above T² limit": ["yes" if v > p.t2_limit else "no" for v in p.t2],
+        "Above Q limit": ["yes" if v > p.q_limit else "no" for v in p.q],
+        "K": np.full(n, int(p.scores.shape[1]), dtype=np.int64),
+        "Confidence": np.full(n, float(confidence)),
+    })
+    return pd.DataFrame(columns)

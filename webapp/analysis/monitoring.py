@@ -43,6 +43,7 @@ __all__ = [
     "reference_period",
     "UploadInfo",
     "monitoring_frame",
+    "order_kind",
     "with_label_column",
     "FRAME_COLUMNS",
 ]
@@ -212,6 +213,24 @@ def _order_values(table, projection, column: str | None, number: int, file_name:
     raw = frame[column].to_numpy(dtype=object)
     values = [raw[position[label]] for label in projection.sample_labels]
     return [_order_value(v, column, file_name) for v in values]
+
+
+def order_kind(table, column: str, file_name: str) -> str:
+    """``"number"`` or ``"date"``: what the order column of one upload holds.
+
+    Raises :class:`OrdinateError` when the file lacks the column, a value is
+    missing or is neither a number nor a date, or the file mixes the two; an
+    upload is checked with this before it is kept, so a kept upload never
+    stops the monitoring frame from being built.
+    """
+    if column not in table.frame.columns:
+        raise OrdinateError(f"The order column '{column}' is not in “{file_name}”. Choose a column that every "
+                            "upload has, or none to keep the upload order.")
+    kinds = {"date" if isinstance(v, pd.Timestamp) else "number"
+             for v in (_order_value(v, column, file_name) for v in table.frame[column].to_numpy(dtype=object))}
+    if len(kinds) > 1:
+        raise OrdinateError(f"The order column '{column}' of “{file_name}” mixes numbers and dates; use one kind.")
+    return kinds.pop() if kinds else "number"
 
 
 def _order_value(value, column: str, file_name: str):

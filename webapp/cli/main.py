@@ -274,7 +274,8 @@ def _run_project(args) -> int:
         args.json.write_text(json.dumps(report, indent=1, ensure_ascii=False), encoding="utf-8")
         print(f"Wrote the JSON report to {args.json}.")
     if args.csv:
-        from webapp.web.exports import projection_frame, to_safe_csv
+        from webapp.analysis.model_io import projection_frame
+        from webapp.analysis.safe_csv import to_safe_csv
 
         confidence = model.confidence if args.confidence is None else args.confidence
         args.csv.write_text(to_safe_csv(projection_frame(projection, confidence)), encoding="utf-8")

@@ -67,6 +67,11 @@ def run_monitor(args) -> int:
     print(f"Added “{info.file_name}” to “{locked.name}” version {locked.version} as upload {number}: "
           f"{info.sample_count} sample(s); {int(mine['t2_beyond'].sum())} above the T² limit for new samples, "
           f"{int(mine['q_beyond'].sum())} above the Q limit ({len(frame)} monitored samples in all).")
+    column = store.production_order_column(locked.code)
+    if column is not None:
+        print(f"Production order: by the order column '{column}'.")
+    elif any(u.order_column for u in store.uploads(locked.code)):
+        print("Production order: upload order, because not every upload names the same order column.")
     positions = set(mine["position"])
     for statistic, median in (("t2", locked.reference.t2_median), ("q", locked.reference.q_median)):
         hits = run_rule_hits(frame[statistic], limit=float(frame[f"{statistic}_limit"].iloc[0]), median=median,

@@ -8,9 +8,12 @@ Layout under ``<data dir>/reference-models/``:
   the list of uploads in upload order.
 * ``files/<sha256>.csv``: the bytes of each uploaded file, written to a
   temporary file, flushed and fsynced, then renamed into place, before the
-  index entry that names it is committed. A process killed at any moment
-  therefore leaves either no upload or a complete one; a file without an index
-  entry is ignored (and reused when the same bytes arrive again).
+  index entry that names it is committed (SQLite, synchronous=FULL). A process
+  killed at any moment therefore leaves either no upload or a complete one; a
+  file without an index entry is ignored (and reused when the same bytes
+  arrive again). Removing an upload deletes its file when no other upload
+  names the same bytes; both happen inside an index transaction, which
+  serialises them with adding.
 
 A locked model is a frozen copy: it holds its own model JSON, so editing or
 deleting the dataset or the saved view it came from changes nothing here.
@@ -23,6 +26,7 @@ import hmac
 import os
 import secrets
 import tempfile
+import threading
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
@@ -37,6 +41,7 @@ from webapp.analysis.monitoring import (
     ReferencePeriod,
     UploadInfo,
     monitoring_frame,
+    order_kind,
     reference_period,
     with_label_column,
 )
@@ -75,8 +80,11 @@ class ReferenceModelStore:
         self.root = Path(data_dir) / "reference-models"
         self.file_dir = self.root / "files"
         self.file_dir.mkdir(parents=True, exist_ok=True)
-        self.index = diskcache.Cache(str(self.root / "index"), size_limit=2**40, eviction_policy="none")
+        # synchronous=FULL: a committed upload survives a power cut too, not only a killed process.
+        self.index = diskcache.Cache(str(self.root / "index"), size_limit=2**40, eviction_policy="none",
+                                     sqlite_synchronous=2)
         self._frames: dict[tuple, object] = {}
+        self._frames_lock = threading.Lock()  # one store serves every thread of a worker
 
     # --- locking ---------------------------------------------------------------
 
@@ -144,7 +152,8 @@ class ReferenceModelStore:
         """Score a file of new samples against the model and keep it as the newest upload.
 
         Raises :class:`OrdinateError` (nothing stored) when the file cannot be read
-        or scored, or lacks the model's order column.
+        or scored, or its order column is missing, has an empty or unreadable
+        value, or holds numbers where earlier uploads have dates (or the reverse).
         """
         locked = self.get(code)
         if locked is None:
@@ -153,9 +162,12 @@ class ReferenceModelStore:
         table = with_label_column(read_table(bytes(data), filename=file_name), locked.label_column)
         projection = project_table(locked.model, table)
         column = order_column or locked.order_column
-        if column is not None and column not in table.frame.columns:
-            raise OrdinateError(f"“{file_name}” has no order column '{column}', which this model's uploads use; "
-                                "add it to the file.")
+        kind = None
+        if column is not None:
+            if column not in table.frame.columns:
+                raise OrdinateError(f"“{file_name}” has no order column '{column}', which this model's uploads use; "
+                                    "add it to the file.")
+            kind = order_kind(table, column, file_name)
         digest = hashlib.sha256(data).hexdigest()
         self._write_file(digest, data)
         info = UploadInfo(upload_id=new_token(), file_name=file_name,
@@ -165,7 +177,13 @@ class ReferenceModelStore:
             if self.index.get(("model", code)) is None:  # removed meanwhile
                 raise OrdinateError("This reference model was removed while the file was being added.")
             uploads = list(self.index.get(("uploads", code), []))
-            uploads.append({**info.__dict__, "sha256": digest})
+            earlier = {u.get("order_kind") for u in uploads if u.get("order_column") == column} - {None}
+            if kind is not None and earlier and kind not in earlier:
+                raise OrdinateError(f"The order column '{column}' of “{file_name}” holds {kind}s, but earlier "
+                                    f"uploads hold {earlier.pop()}s; use the same kind in every file.")
+            if not self._file_path(digest).exists():  # removed by a removal of the same bytes meanwhile
+                self._write_file(digest, data)
+            uploads.append({**info.__dict__, "sha256": digest, "order_kind": kind})
             self.index[("uploads", code)] = uploads
         return info
 
@@ -191,7 +209,14 @@ class ReferenceModelStore:
             if len(kept) == len(uploads):
                 return False
             self.index[("uploads", code)] = kept
+            (removed,) = [u["sha256"] for u in uploads if u["upload_id"] == upload_id]
+            if not any(u["sha256"] == removed for _, records in self._all_upload_records() for u in records):
+                self._file_path(removed).unlink(missing_ok=True)  # the data go with the last upload naming them
         return True
+
+    def production_order_column(self, code: str) -> str | None:
+        """The order column the monitoring frame sorts by: the one every upload names, else None (upload order)."""
+        return _common_order_column(self._upload_records(code))
 
     def frame(self, code: str):
         """The monitoring frame (:func:`webapp.analysis.monitoring.monitoring_frame`) of every upload."""
@@ -200,16 +225,17 @@ class ReferenceModelStore:
             raise OrdinateError("No reference model with this monitoring link is on this server.")
         records = self._upload_records(code)
         key = (code, tuple(r["upload_id"] for r in records))
-        if key not in self._frames:
+        with self._frames_lock:
+            frame = self._frames.get(key)
+        if frame is None:
             pairs = [(_upload_info(r), read_table(self._file_path(r["sha256"]).read_bytes(), filename=r["file_name"]))
                      for r in records]
-            # Production order by the order column only when every upload names the same one.
-            columns = {r.get("order_column") for r in records}
-            column = columns.pop() if len(columns) == 1 else None
-            if len(self._frames) >= _FRAME_MEMO:
-                self._frames.pop(next(iter(self._frames)))
-            self._frames[key] = monitoring_frame(locked.model, pairs, column, locked.label_column)
-        return self._frames[key].copy()
+            frame = monitoring_frame(locked.model, pairs, _common_order_column(records), locked.label_column)
+            with self._frames_lock:
+                while len(self._frames) >= _FRAME_MEMO:
+                    self._frames.pop(next(iter(self._frames)))
+                self._frames[key] = frame
+        return frame.copy()
 
     # --- internals -------------------------------------------------------------
 
@@ -219,6 +245,11 @@ class ReferenceModelStore:
                 record = self.index.get(key)
                 if record is not None:
                     yield (key[1], record) if with_codes else record
+
+    def _all_upload_records(self):
+        for key in list(self.index.iterkeys()):
+            if isinstance(key, tuple) and key[0] == "uploads":
+                yield key[1], self.index.get(key, [])
 
     def _upload_records(self, code: str) -> list[dict]:
         return list(self.index.get(("uploads", code), [])) if is_token(code) else []
@@ -263,6 +294,12 @@ def _upload_info(record: dict) -> UploadInfo:
     return UploadInfo(upload_id=record["upload_id"], file_name=record["file_name"], uploaded_by=record["uploaded_by"],
                       uploaded_at=record["uploaded_at"], sample_count=int(record["sample_count"]),
                       order_column=record.get("order_column"))
+
+
+def _common_order_column(records: list[dict]) -> str | None:
+    """Production order by the order column only when every upload names the same one."""
+    columns = {r.get("order_column") for r in records}
+    return columns.pop() if len(columns) == 1 else None
 
 
 def _same_name(a: str, b: str) -> bool:

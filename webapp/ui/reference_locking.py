@@ -47,32 +47,55 @@ def lock_view_state(services, state, name: str, *, source_view_id: str | None = 
         order_column=order_column, label_column=resolved.table.id_column)
 
 
-#: Store settings of the demo's locked reference model (claimed by the first worker).
+#: Store setting naming the demo's locked reference model once it is complete.
 DEMO_MONITORING_SETTING = "demo-monitoring-code"
 DEMO_MODEL_NAME = "Oat dessert release model (synthetic demo)"
 
 
-def seed_demo_monitoring(services, folder) -> str | None:
+def seed_demo_monitoring(services, folder=None) -> str | None:
     """Lock the demo dataset's default view as a reference model and add the demo's weekly uploads.
 
-    Once per data directory (the first worker to claim it does the work); returns the
-    monitoring code, or None when there is no demo dataset or no upload files.
+    ``folder``: the upload files (``*.csv``, added in name order); by default the
+    ``monitoring`` folder beside the demo dataset. Once per data directory: the
+    worker that gets the lock does the work while the others go on starting
+    (None); a worker killed half-way leaves the lock free, and the next start
+    finishes the same model (uploads already added by file name are skipped).
+    Returns the monitoring code, or None when there is no demo dataset or no
+    upload files, or another worker is seeding.
     """
     from pathlib import Path
 
     from webapp.state import ViewState
+    from webapp.store.file_lock import FileLock
     from webapp.store.services import DEMO_SETTING
 
-    token = services.store.get_setting(DEMO_SETTING)
+    store, models = services.store, services.reference_models
+    token = store.get_setting(DEMO_SETTING)
+    demo = services.config.demo_dataset
+    if folder is None and demo is not None:
+        folder = Path(demo).parent / "monitoring"
     files = sorted(Path(folder).glob("*.csv")) if folder else []
     if not token or not files:
         return None
-    done = services.store.get_setting(DEMO_MONITORING_SETTING)
-    if done or not services.store.add_if_absent(DEMO_MONITORING_SETTING + "-claim", "1"):
+    done = store.get_setting(DEMO_MONITORING_SETTING)
+    if done and models.get(done):
         return done
-    locked, _ = lock_view_state(services, ViewState(dataset=token), DEMO_MODEL_NAME, order_column="made_on")
-    for path in files:
-        services.reference_models.add_upload(locked.code, path.read_bytes(), path.name,
-                                             uploaded_by="synthetic demo", order_column="made_on")
-    services.store.set_setting(DEMO_MONITORING_SETTING, locked.code)
-    return locked.code
+    lock = FileLock(models.root / "demo-seed.lock")
+    if not lock.acquire(timeout=0):
+        return None
+    try:
+        done = store.get_setting(DEMO_MONITORING_SETTING)
+        if done and models.get(done):
+            return done
+        started = [m for m in models.versions(DEMO_MODEL_NAME) if m.dataset_token == token]
+        locked = started[-1] if started else \
+            lock_view_state(services, ViewState(dataset=token), DEMO_MODEL_NAME, order_column="made_on")[0]
+        added = {u.file_name for u in models.uploads(locked.code)}
+        for path in files:
+            if path.name not in added:
+                models.add_upload(locked.code, path.read_bytes(), path.name, uploaded_by="synthetic demo",
+                                  order_column="made_on")
+        store.set_setting(DEMO_MONITORING_SETTING, locked.code)
+        return locked.code
+    finally:
+        lock.release()
