@@ -79,7 +79,7 @@ def test_uploads_are_appended_in_order_and_only_the_manager_removes_one(tmp_path
     uploads = wine[2]
     infos = [store.add_upload(locked.code, csv_bytes(u), f"later-{i}.csv", uploaded_by="QC lab")
              for i, u in enumerate(uploads, 1)]
-    assert [i.sample_count for i in infos] == [len(u) for u in uploads]
+    assert [i.sample_count for i in infos] == [len(u) for u in uploads] and infos[0].notes == ()
     assert [u.file_name for u in store.uploads(locked.code)] == ["later-1.csv", "later-2.csv", "later-3.csv"]
     frame = store.frame(locked.code)
     assert list(frame["sample"]) == [w for u in uploads for w in u["wine"]]
@@ -88,6 +88,18 @@ def test_uploads_are_appended_in_order_and_only_the_manager_removes_one(tmp_path
     assert store.remove_upload(locked.code, infos[1].upload_id, key)
     assert list(store.frame(locked.code)["sample"]) == [*uploads[0]["wine"], *uploads[2]["wine"]]
     assert list(store.upload_table(locked.code, infos[0].upload_id).sample_labels()) == list(uploads[0]["wine"])
+
+
+def test_what_scoring_said_about_a_file_is_kept_with_its_upload(tmp_path, wine):
+    store = ReferenceModelStore(tmp_path)
+    locked, _ = _lock(store, wine)
+    upload = wine[2][0].copy()
+    upload.loc[2, "alcohol"] = np.nan
+    upload["operator_badge"] = 7.0
+    info = store.add_upload(locked.code, csv_bytes(upload), "gaps.csv")
+    (kept,) = ReferenceModelStore(tmp_path).uploads(locked.code)
+    assert kept.notes == info.notes and len(info.notes) == 2
+    assert "1 missing value" in info.notes[0] and "operator_badge" in info.notes[1]
 
 
 def test_a_file_that_cannot_be_scored_is_refused_and_nothing_is_stored(tmp_path, wine):

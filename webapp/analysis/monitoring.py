@@ -138,6 +138,8 @@ class UploadInfo:
     uploaded_at: str  # ISO 8601, UTC
     sample_count: int
     order_column: str | None = None
+    #: What scoring the file said: missing values set to the reference mean, ignored columns, samples not scored.
+    notes: tuple[str, ...] = ()
 
 
 def with_label_column(table, label_column: str | None):

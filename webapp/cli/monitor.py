@@ -67,6 +67,8 @@ def run_monitor(args) -> int:
     print(f"Added “{info.file_name}” to “{locked.name}” version {locked.version} as upload {number}: "
           f"{info.sample_count} sample(s); {int(mine['t2_beyond'].sum())} above the T² limit for new samples, "
           f"{int(mine['q_beyond'].sum())} above the Q limit ({len(frame)} monitored samples in all).")
+    for note in info.notes:
+        print(f"Note: {note}")
     column = store.production_order_column(locked.code)
     if column is not None:
         print(f"Production order: by the order column '{column}'.")

@@ -172,7 +172,8 @@ class ReferenceModelStore:
         self._write_file(digest, data)
         info = UploadInfo(upload_id=new_token(), file_name=file_name,
                           uploaded_by=_clean(uploaded_by, MAX_UPLOADED_BY_CHARS), uploaded_at=_now(),
-                          sample_count=len(projection.sample_labels), order_column=column)
+                          sample_count=len(projection.sample_labels), order_column=column,
+                          notes=tuple(projection.warnings))
         with self.index.transact():
             if self.index.get(("model", code)) is None:  # removed meanwhile
                 raise OrdinateError("This reference model was removed while the file was being added.")
@@ -183,7 +184,7 @@ class ReferenceModelStore:
                                     f"uploads hold {earlier.pop()}s; use the same kind in every file.")
             if not self._file_path(digest).exists():  # removed by a removal of the same bytes meanwhile
                 self._write_file(digest, data)
-            uploads.append({**info.__dict__, "sha256": digest, "order_kind": kind})
+            uploads.append({**info.__dict__, "notes": list(info.notes), "sha256": digest, "order_kind": kind})
             self.index[("uploads", code)] = uploads
         return info
 
@@ -293,7 +294,7 @@ def _locked(code: str, record: dict) -> LockedModel:
 def _upload_info(record: dict) -> UploadInfo:
     return UploadInfo(upload_id=record["upload_id"], file_name=record["file_name"], uploaded_by=record["uploaded_by"],
                       uploaded_at=record["uploaded_at"], sample_count=int(record["sample_count"]),
-                      order_column=record.get("order_column"))
+                      order_column=record.get("order_column"), notes=tuple(record.get("notes", ())))
 
 
 def _common_order_column(records: list[dict]) -> str | None:
