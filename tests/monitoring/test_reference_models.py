@@ -202,3 +202,28 @@ def test_removing_the_last_upload_of_some_bytes_deletes_the_file(tmp_path, wine)
     assert store.remove_upload(two.code, b.upload_id, key_two) and not path.exists()
     again = store.add_upload(one.code, data, "same.csv")  # the same bytes can come back
     assert list(store.upload_table(one.code, again.upload_id).sample_labels()) == list(wine[2][0]["wine"])
+
+
+def test_the_stored_frame_equals_scoring_every_file_again(tmp_path, wine):
+    import pandas as pd
+
+    from webapp.analysis.ingest import read_table
+    from webapp.analysis.monitoring import monitoring_frame
+
+    store = ReferenceModelStore(tmp_path)
+    locked, _ = _lock(store, wine)
+    files = []
+    for i, upload in enumerate(wine[2]):
+        dated = upload.copy()
+        dated["made"] = [f"2026-0{3 - i}-01T06:{d:02d}" for d in range(len(dated))]  # later files made earlier
+        files.append(csv_bytes(dated))
+        store.add_upload(locked.code, files[-1], f"u{i}.csv", order_column="made")
+    pairs = [(info, read_table(data, filename=info.file_name)) for info, data in zip(store.uploads(locked.code), files)]
+    expected = monitoring_frame(locked.model, pairs, "made", "wine")  # the analysis layer, from the files
+    assert expected["order"].iloc[0].startswith("2026-01-01T06:00")
+    pd.testing.assert_frame_equal(ReferenceModelStore(tmp_path).frame(locked.code), expected)
+    # An index without the scored parts (written before they were kept) scores the files again.
+    fresh = ReferenceModelStore(tmp_path)
+    for info in fresh.uploads(locked.code):
+        fresh.index.delete(("part", locked.code, info.upload_id))
+    pd.testing.assert_frame_equal(fresh.frame(locked.code), expected)

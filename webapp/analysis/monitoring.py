@@ -43,7 +43,8 @@ __all__ = [
     "reference_period",
     "UploadInfo",
     "monitoring_frame",
-    "order_kind",
+    "score_upload",
+    "frame_from_parts",
     "with_label_column",
     "FRAME_COLUMNS",
 ]
@@ -169,43 +170,72 @@ def monitoring_frame(model: ReferenceModel, uploads: Sequence[tuple[UploadInfo, 
     scores ``PC1`` .. ``PCK``; ``order`` is the order column's value (as text) or
     the upload's number (1, 2, ...).
     """
-    names = [f"PC{a + 1}" for a in range(model.components)]
-    parts = []
-    for number, (info, table) in enumerate(uploads, start=1):
-        table = with_label_column(table, label_column)
+    parts = [score_upload(model, info, table, order_column=order_column, label_column=label_column)
+             for info, table in uploads]
+    return frame_from_parts(model, parts, by_order_column=order_column is not None)
+
+
+def score_upload(model: ReferenceModel, info: UploadInfo, table, *, order_column: str | None = None,
+                 label_column: str | None = None, projection=None) -> pd.DataFrame:
+    """One upload scored against ``model``: its part of the monitoring frame, in file order.
+
+    Columns ``upload``, ``sample``, ``t2`` .. ``q_beyond``, ``PC1`` .. ``PCK`` and
+    ``order_key`` (the order column's value as a number or a UTC timestamp; None
+    without an order column). A part depends only on the frozen model and the
+    upload, so a store can keep it; :func:`frame_from_parts` puts parts in
+    production order. ``projection``: the table's projection when already made.
+    """
+    table = with_label_column(table, label_column)
+    if projection is None:
         projection = project_table(model, table)
-        part = pd.DataFrame({
-            "upload": info.upload_id,
-            "sample": list(projection.sample_labels),
-            "t2": projection.t2,
-            "q": projection.q,
-            "t2_limit": projection.t2_limit,
-            "q_limit": projection.q_limit,
-        })
-        part["t2_beyond"] = part["t2"] > part["t2_limit"]
-        part["q_beyond"] = part["q"] > part["q_limit"]
-        for a, name in enumerate(names):
-            part[name] = projection.scores[:, a]
-        part["_sort"] = _order_values(table, projection, order_column, number, info.file_name)
-        parts.append(part)
+    part = pd.DataFrame({
+        "upload": pd.Series([info.upload_id] * len(projection.sample_labels), dtype=object),
+        "sample": pd.Series(list(projection.sample_labels), dtype=object),
+        "t2": np.asarray(projection.t2, dtype=np.float64),
+        "q": np.asarray(projection.q, dtype=np.float64),
+    })
+    part["t2_limit"], part["q_limit"] = float(projection.t2_limit), float(projection.q_limit)
+    part["t2_beyond"] = part["t2"] > part["t2_limit"]
+    part["q_beyond"] = part["q"] > part["q_limit"]
+    for a in range(model.components):
+        part[f"PC{a + 1}"] = projection.scores[:, a]
+    part["order_key"] = pd.Series(_order_values(table, projection, order_column, info.file_name), dtype=object)
+    return part
+
+
+def frame_from_parts(model: ReferenceModel, parts: Sequence[pd.DataFrame], *, by_order_column: bool) -> pd.DataFrame:
+    """The monitoring frame from the parts of :func:`score_upload`, given in upload order.
+
+    ``by_order_column``: sort by the parts' ``order_key`` (every part must have
+    one); else keep upload order, and ``order`` is the upload's number.
+    """
+    names = [f"PC{a + 1}" for a in range(model.components)]
     if not parts:
         empty = pd.DataFrame({c: pd.Series(dtype=t) for c, t in zip(FRAME_COLUMNS, _EMPTY_TYPES)})
         for name in names:
             empty[name] = pd.Series(dtype=np.float64)
         return empty
-    frame = pd.concat(parts, ignore_index=True)
-    frame = frame.iloc[_production_order(frame["_sort"])].reset_index(drop=True)
+    numbered = []
+    for number, part in enumerate(parts, start=1):
+        part = part.copy()
+        if not by_order_column:
+            part["order_key"] = pd.Series([number] * len(part), index=part.index, dtype=object)
+        elif part["order_key"].isna().any():
+            raise OrdinateError("Not every upload has the order column; monitor in upload order.")
+        numbered.append(part)
+    frame = pd.concat(numbered, ignore_index=True)
+    frame = frame.iloc[_production_order(frame["order_key"])].reset_index(drop=True)
     frame.insert(0, "position", np.arange(len(frame), dtype=np.int64))
-    frame.insert(3, "order", frame.pop("_sort").map(_order_text))
+    frame.insert(3, "order", frame.pop("order_key").map(_order_text))
     return frame[[*FRAME_COLUMNS, *names]]
 
 
 _EMPTY_TYPES = (np.int64, object, object, object, np.float64, np.float64, np.float64, np.float64, bool, bool)
 
 
-def _order_values(table, projection, column: str | None, number: int, file_name: str) -> list:
+def _order_values(table, projection, column: str | None, file_name: str) -> list:
     if column is None:
-        return [number] * len(projection.sample_labels)
+        return [None] * len(projection.sample_labels)
     frame = table.frame
     if column not in frame.columns:
         raise OrdinateError(f"The order column '{column}' is not in “{file_name}”. Choose a column that every "
@@ -215,24 +245,6 @@ def _order_values(table, projection, column: str | None, number: int, file_name:
     raw = frame[column].to_numpy(dtype=object)
     values = [raw[position[label]] for label in projection.sample_labels]
     return [_order_value(v, column, file_name) for v in values]
-
-
-def order_kind(table, column: str, file_name: str) -> str:
-    """``"number"`` or ``"date"``: what the order column of one upload holds.
-
-    Raises :class:`OrdinateError` when the file lacks the column, a value is
-    missing or is neither a number nor a date, or the file mixes the two; an
-    upload is checked with this before it is kept, so a kept upload never
-    stops the monitoring frame from being built.
-    """
-    if column not in table.frame.columns:
-        raise OrdinateError(f"The order column '{column}' is not in “{file_name}”. Choose a column that every "
-                            "upload has, or none to keep the upload order.")
-    kinds = {"date" if isinstance(v, pd.Timestamp) else "number"
-             for v in (_order_value(v, column, file_name) for v in table.frame[column].to_numpy(dtype=object))}
-    if len(kinds) > 1:
-        raise OrdinateError(f"The order column '{column}' of “{file_name}” mixes numbers and dates; use one kind.")
-    return kinds.pop() if kinds else "number"
 
 
 def _order_value(value, column: str, file_name: str):

@@ -5,7 +5,9 @@ Layout under ``<data dir>/reference-models/``:
 * ``index/``: a diskcache (SQLite) index shared by every worker process:
   ``("model", code)`` -> the frozen model (its JSON form, the reference
   period, name, version, fingerprint, manager key); ``("uploads", code)`` ->
-  the list of uploads in upload order.
+  the list of uploads in upload order; ``("part", code, upload id)`` -> the
+  upload scored against the model (plain lists), written in the same
+  transaction, so the monitoring frame is built without reading the files again.
 * ``files/<sha256>.csv``: the bytes of each uploaded file, written to a
   temporary file, flushed and fsynced, then renamed into place, before the
   index entry that names it is committed (SQLite, synchronous=FULL). A process
@@ -33,6 +35,7 @@ from pathlib import Path
 
 import diskcache
 import numpy as np
+import pandas as pd
 
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.ingest import read_table
@@ -40,9 +43,9 @@ from webapp.analysis.model_io import ReferenceModel, model_from_dict, model_to_d
 from webapp.analysis.monitoring import (
     ReferencePeriod,
     UploadInfo,
-    monitoring_frame,
-    order_kind,
+    frame_from_parts,
     reference_period,
+    score_upload,
     with_label_column,
 )
 from webapp.store.storage import is_token, new_token
@@ -162,18 +165,21 @@ class ReferenceModelStore:
         table = with_label_column(read_table(bytes(data), filename=file_name), locked.label_column)
         projection = project_table(locked.model, table)
         column = order_column or locked.order_column
-        kind = None
-        if column is not None:
-            if column not in table.frame.columns:
-                raise OrdinateError(f"“{file_name}” has no order column '{column}', which this model's uploads use; "
-                                    "add it to the file.")
-            kind = order_kind(table, column, file_name)
-        digest = hashlib.sha256(data).hexdigest()
-        self._write_file(digest, data)
+        if column is not None and column not in table.frame.columns:
+            raise OrdinateError(f"“{file_name}” has no order column '{column}', which this model's uploads use; "
+                                "add it to the file.")
         info = UploadInfo(upload_id=new_token(), file_name=file_name,
                           uploaded_by=_clean(uploaded_by, MAX_UPLOADED_BY_CHARS), uploaded_at=_now(),
                           sample_count=len(projection.sample_labels), order_column=column,
                           notes=tuple(projection.warnings))
+        # Scoring with the order column checks every value of it (a number or a date) before anything is kept.
+        part = score_upload(locked.model, info, table, order_column=column, projection=projection)
+        kinds = {"date" if isinstance(v, pd.Timestamp) else "number" for v in part["order_key"] if v is not None}
+        if len(kinds) > 1:
+            raise OrdinateError(f"The order column '{column}' of “{file_name}” mixes numbers and dates; use one kind.")
+        kind = kinds.pop() if kinds else None
+        digest = hashlib.sha256(data).hexdigest()
+        self._write_file(digest, data)
         with self.index.transact():
             if self.index.get(("model", code)) is None:  # removed meanwhile
                 raise OrdinateError("This reference model was removed while the file was being added.")
@@ -185,6 +191,7 @@ class ReferenceModelStore:
             if not self._file_path(digest).exists():  # removed by a removal of the same bytes meanwhile
                 self._write_file(digest, data)
             uploads.append({**info.__dict__, "notes": list(info.notes), "sha256": digest, "order_kind": kind})
+            self.index[("part", code, info.upload_id)] = _part_record(part)
             self.index[("uploads", code)] = uploads
         return info
 
@@ -210,6 +217,7 @@ class ReferenceModelStore:
             if len(kept) == len(uploads):
                 return False
             self.index[("uploads", code)] = kept
+            self.index.delete(("part", code, upload_id))
             (removed,) = [u["sha256"] for u in uploads if u["upload_id"] == upload_id]
             if not any(u["sha256"] == removed for _, records in self._all_upload_records() for u in records):
                 self._file_path(removed).unlink(missing_ok=True)  # the data go with the last upload naming them
@@ -229,9 +237,12 @@ class ReferenceModelStore:
         with self._frames_lock:
             frame = self._frames.get(key)
         if frame is None:
-            pairs = [(_upload_info(r), read_table(self._file_path(r["sha256"]).read_bytes(), filename=r["file_name"]))
-                     for r in records]
-            frame = monitoring_frame(locked.model, pairs, _common_order_column(records), locked.label_column)
+            by_column = _common_order_column(records) is not None
+            stored = [self._part(locked, record) for record in records]
+            # One frame for all uploads (building one per upload costs more than the sort), keyed by
+            # the order column's values, or by the upload's number for upload order.
+            combined = _combined_part(stored, [r["upload_id"] for r in records], locked.model.components, by_column)
+            frame = frame_from_parts(locked.model, [combined], by_order_column=True)
             with self._frames_lock:
                 while len(self._frames) >= _FRAME_MEMO:
                     self._frames.pop(next(iter(self._frames)))
@@ -246,6 +257,18 @@ class ReferenceModelStore:
                 record = self.index.get(key)
                 if record is not None:
                     yield (key[1], record) if with_codes else record
+
+    def _part(self, locked: LockedModel, record: dict) -> dict:
+        """One upload's scored part (plain lists): from the index, else scored again from its file and kept."""
+        key = ("part", locked.code, record["upload_id"])
+        stored = self.index.get(key)
+        if stored is None:
+            table = read_table(self._file_path(record["sha256"]).read_bytes(), filename=record["file_name"])
+            stored = _part_record(score_upload(locked.model, _upload_info(record), table,
+                                               order_column=record.get("order_column"),
+                                               label_column=locked.label_column))
+            self.index.add(key, stored)  # unless another worker kept it first
+        return stored
 
     def _all_upload_records(self):
         for key in list(self.index.iterkeys()):
@@ -295,6 +318,50 @@ def _upload_info(record: dict) -> UploadInfo:
     return UploadInfo(upload_id=record["upload_id"], file_name=record["file_name"], uploaded_by=record["uploaded_by"],
                       uploaded_at=record["uploaded_at"], sample_count=int(record["sample_count"]),
                       order_column=record.get("order_column"), notes=tuple(record.get("notes", ())))
+
+
+def _part_record(part) -> dict:
+    """A scored part in plain lists (no pickled pandas objects in the index): dates as ISO 8601 text."""
+    scores = part[[c for c in part.columns if c.startswith("PC")]].to_numpy(dtype=np.float64)
+    return {
+        "sample": [str(v) for v in part["sample"]],
+        "t2": part["t2"].tolist(),
+        "q": part["q"].tolist(),
+        "t2_limit": float(part["t2_limit"].iloc[0]) if len(part) else 0.0,
+        "q_limit": float(part["q_limit"].iloc[0]) if len(part) else 0.0,
+        "scores": scores.tolist(),
+        "order_key": [None if v is None else (v.isoformat() if isinstance(v, pd.Timestamp) else float(v))
+                      for v in part["order_key"]],
+    }
+
+
+def _combined_part(stored: list[dict], upload_ids: list[str], k: int, by_column: bool):
+    """The parts of every upload (upload order) as one part of :func:`score_upload`'s form."""
+    counts = [len(part["sample"]) for part in stored]
+    n = sum(counts)
+
+    def join(name: str) -> list:
+        return [v for part in stored for v in part[name]]
+
+    frame = pd.DataFrame({
+        "upload": pd.Series(np.repeat(np.array(upload_ids, dtype=object), counts), dtype=object),
+        "sample": pd.Series(join("sample"), dtype=object),
+        "t2": np.asarray(join("t2"), dtype=np.float64),
+        "q": np.asarray(join("q"), dtype=np.float64),
+        "t2_limit": np.repeat([part["t2_limit"] for part in stored], counts).astype(np.float64),
+        "q_limit": np.repeat([part["q_limit"] for part in stored], counts).astype(np.float64),
+    })
+    frame["t2_beyond"] = frame["t2"] > frame["t2_limit"]
+    frame["q_beyond"] = frame["q"] > frame["q_limit"]
+    scores = np.asarray(join("scores"), dtype=np.float64).reshape(n, k)
+    for a in range(k):
+        frame[f"PC{a + 1}"] = scores[:, a]
+    if by_column:
+        keys = [v if v is None or isinstance(v, float) else pd.Timestamp(v) for v in join("order_key")]
+    else:
+        keys = list(np.repeat(np.arange(1, len(stored) + 1), counts).tolist())
+    frame["order_key"] = pd.Series(keys, dtype=object)
+    return frame
 
 
 def _common_order_column(records: list[dict]) -> str | None:
