@@ -66,7 +66,10 @@ def test_a_model_file_is_locked_once_with_its_reference_data_then_found_again(fi
     assert "Locked model.json as “Wine v-file” version 1" in out and "/manage?key=" in out
     assert main(["monitor", str(model_file), str(folder / "later-2.csv"), *common]) == 0
     assert "as upload 2" in capsys.readouterr().out
+    assert main(["monitor", str(model_file), str(folder / "later-2.csv"), *common]) == 0  # sent twice
+    assert "already added as upload 2" in capsys.readouterr().out
     (locked,) = ReferenceModelStore(data_dir).all()
+    assert len(ReferenceModelStore(data_dir).uploads(locked.code)) == 3
     # The reference period from the model's own preprocessing equals the fit's T² and Q.
     _, period, analysis = fitted_reference(reference)
     np.testing.assert_allclose(locked.reference.t2, analysis.diagnostics.t2, rtol=1e-9)
@@ -113,3 +116,20 @@ def test_monitoring_links_and_codes_are_recognised():
     assert model_code(f"/m/{code}/report.html?x=1") == code
     assert model_code(code) == code
     assert model_code("http://host/v/short") is None
+
+
+def test_a_model_file_locked_twice_goes_to_the_newest_and_says_so(files, tmp_path, capsys):
+    from webapp.analysis.model_io import load_model
+
+    folder, reference, _ = files
+    model_file = tmp_path / "model.json"
+    assert main(["analyze", str(folder / "reference.csv"), "--components", "3", "--model", str(model_file)]) == 0
+    store = ReferenceModelStore(tmp_path)
+    _, period, _ = fitted_reference(reference)
+    older, _ = store.lock(load_model(model_file), name="Older", reference=period, data_fingerprint="0" * 64)
+    newer, _ = store.lock(load_model(model_file), name="Newer", reference=period, data_fingerprint="0" * 64)
+    capsys.readouterr()
+    assert main(["monitor", str(model_file), str(folder / "later-1.csv"), "--data-dir", str(tmp_path)]) == 0
+    assert "2 locked reference models hold the model of model.json; using the newest, “Newer”" in \
+        capsys.readouterr().out
+    assert len(store.uploads(newer.code)) == 1 and store.uploads(older.code) == []

@@ -64,11 +64,17 @@ def test_a_locked_model_does_not_change_when_its_source_is_edited_or_deleted(tmp
     assert locked.model.components == 3 and locked.data_fingerprint == record.content_hash
     assert locked.source_view_id == view.view_id and locked.label_column == "wine"
     frozen = model_to_dict(locked.model)
-    # An edited view (other scaling) is another saved view; deleting the dataset removes the source.
-    services.store.save_view(record.token, to_query(ViewState(dataset=record.token, scaling="pareto")),
-                             title="Edited", content_hash=record.content_hash, engine_version="x")
+    # An edited view (other scaling, K) is another saved view; its model is locked as version 2.
+    edited = services.store.save_view(record.token, to_query(ViewState(dataset=record.token, scaling="pareto",
+                                                                       components=2)),
+                                      title="Edited", content_hash=record.content_hash, engine_version="x")
+    newer, _ = lock_saved_view(services, edited.view_id, "wine release MODEL")
+    assert newer.version == 2 and newer.model.components == 2 and model_to_dict(newer.model) != frozen
+    # Deleting the dataset removes the source of both; the versions stay readable and unchanged.
     assert services.store.delete_dataset(record.token)
     assert model_to_dict(services.reference_models.get(locked.code).model) == frozen
+    assert [m.version for m in services.reference_models.versions("Wine release model")] == [1, 2]
+    np.testing.assert_array_equal(services.reference_models.get(newer.code).model.loadings, newer.model.loadings)
     with pytest.raises(OrdinateError, match="saved view"):
         lock_saved_view(services, view.view_id, "Wine release model")
 

@@ -8,7 +8,7 @@ MODEL is a monitoring link (or its code), or a model JSON file written by
 ``ordinate analyze --model``. A file is locked in the data directory the first
 time, with ``--reference`` (the data the model was fitted on, for the
 reference period) and ``--name``; later calls with the same file find that
-locked model again by the file's content.
+locked model again by the model's content (the newest, when several hold it).
 """
 
 from __future__ import annotations
@@ -132,9 +132,12 @@ def _locked_from_file(store, path: Path, args):
 
     model = load_model(path)
     canonical = model_to_dict(model)
-    for locked in store.all():
-        if model_to_dict(locked.model) == canonical:
-            return locked
+    same = sorted((m for m in store.all() if model_to_dict(m.model) == canonical), key=lambda m: m.sequence)
+    if same:
+        if len(same) > 1:
+            print(f"{len(same)} locked reference models hold the model of {path.name}; using the newest, "
+                  f"“{same[-1].name}” version {same[-1].version}. Give a monitoring link to choose another.")
+        return same[-1]
     if args.reference is None:
         raise OrdinateError(f"{path.name} is not locked in this data directory yet. The first time, give the data "
                             "the model was fitted on with --reference (and a --name).")

@@ -23,6 +23,7 @@ deleting the dataset or the saved view it came from changes nothing here.
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import hmac
 import os
@@ -70,6 +71,7 @@ class LockedModel:
     reference: ReferencePeriod
     order_column: str | None = None
     label_column: str | None = None  # the reference data's label column, used for uploads that have it
+    sequence: int = 0  # 1, 2, ... in the order models were locked in this data directory
 
     @property
     def title(self) -> str:
@@ -121,8 +123,9 @@ class ReferenceModelStore:
             },
         }
         with self.index.transact():
-            record["version"] = 1 + max((m["version"] for m in self._records() if _same_name(m["name"], name)),
-                                        default=0)
+            records = list(self._records())
+            record["version"] = 1 + max((m["version"] for m in records if _same_name(m["name"], name)), default=0)
+            record["sequence"] = 1 + max((m.get("sequence", 0) for m in records), default=0)
             self.index[("model", code)] = record
             self.index[("uploads", code)] = []
         return self.get(code), key
@@ -190,6 +193,12 @@ class ReferenceModelStore:
                                     f"uploads hold {earlier.pop()}s; use the same kind in every file.")
             if not self._file_path(digest).exists():  # removed by a removal of the same bytes meanwhile
                 self._write_file(digest, data)
+            repeated = [(n, u) for n, u in enumerate(uploads, 1) if u["sha256"] == digest]
+            if repeated:  # kept (it may be meant), but said: a pipeline run twice would count samples twice
+                number, first = repeated[0]
+                info = dataclasses.replace(info, notes=(*info.notes, (
+                    f"The same file was already added as upload {number} ({first['uploaded_at'][:16].replace('T', ' ')} "
+                    "UTC); remove one of them if it was sent twice by mistake.")))
             uploads.append({**info.__dict__, "notes": list(info.notes), "sha256": digest, "order_kind": kind})
             self.index[("part", code, info.upload_id)] = _part_record(part)
             self.index[("uploads", code)] = uploads
@@ -311,7 +320,8 @@ def _locked(code: str, record: dict) -> LockedModel:
     return LockedModel(code=code, name=record["name"], version=int(record["version"]), locked_at=record["locked_at"],
                        source_view_id=record["source_view_id"], dataset_token=record["dataset_token"],
                        data_fingerprint=record["data_fingerprint"], model=model, reference=reference,
-                       order_column=record.get("order_column"), label_column=record.get("label_column"))
+                       order_column=record.get("order_column"), label_column=record.get("label_column"),
+                       sequence=int(record.get("sequence", 0)))
 
 
 def _upload_info(record: dict) -> UploadInfo:
