@@ -13,30 +13,10 @@ from typing import Any
 from urllib.parse import parse_qsl, quote, urlencode
 
 from webapp.state.view_state import (
-    BIPLOT_SCALINGS,
-    SLIDE_FIGURES,
-    CENTRINGS,
-    ELLIPSE_MODES,
-    MAX_ARROWS,
-    MAX_OVERLAID,
-    MAX_CONFIDENCE,
-    MAX_PC,
-    MAX_SIGMA,
-    MAX_SIGMA_LEVELS,
-    MAX_SLIDE,
-    MIN_CONFIDENCE,
-    MISSING_POLICIES,
-    NO_COLOUR,
-    MAX_RANGES,
-    MAX_SAVGOL_DERIVATIVE,
-    MAX_SAVGOL_ORDER,
-    MAX_SAVGOL_WINDOW,
-    ROW_CORRECTIONS,
-    SCALINGS,
-    TRANSFORMS,
-    _TOKEN_PATTERN,
-    ViewState,
-    ViewStateError,
+    BIPLOT_SCALINGS, SLIDE_FIGURES, CENTRINGS, ELLIPSE_MODES, MAX_ARROWS, MAX_OVERLAID, MAX_CONFIDENCE, MAX_PC,
+    MAX_SIGMA, MAX_SIGMA_LEVELS, MAX_SLIDE, MIN_CONFIDENCE, MISSING_POLICIES, NO_COLOUR, MAX_RANGES,
+    MAX_SAVGOL_DERIVATIVE, MAX_SAVGOL_ORDER, MAX_SAVGOL_WINDOW, ROW_CORRECTIONS, ROWS_ARE, SCALINGS,
+    TRANSFORMS, _TOKEN_PATTERN, ViewState, ViewStateError,
 )
 
 __all__ = [
@@ -300,6 +280,7 @@ def _write_transform_pair(pair: tuple[str, str]) -> str:
 
 PARAMETERS: tuple[UrlParameter, ...] = (
     UrlParameter("ds", "dataset", "data", _read_token, _write_optional),
+    UrlParameter("rows", "rows_are", "recipe", _read_choice(ROWS_ARE), str),
     UrlParameter("off", "variables_off", "recipe", _read_label, str, repeated=True),
     UrlParameter("offset", "variables_off_set", "recipe", _read_token, _write_optional),
     UrlParameter("ex", "excluded", "recipe", _read_label, str, repeated=True),

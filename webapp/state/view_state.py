@@ -24,6 +24,7 @@ __all__ = [
     "SCALINGS",
     "TRANSFORMS",
     "ROW_CORRECTIONS",
+    "ROWS_ARE",
     "MAX_RANGES",
     "MAX_SAVGOL_WINDOW",
     "MAX_SAVGOL_ORDER",
@@ -54,6 +55,7 @@ BIPLOT_SCALINGS: tuple[str, ...] = ("correlation", "distance")
 # The figure a saved view shows as a slide, filling the screen.
 SLIDE_FIGURES: tuple[str, ...] = ("scores", "variance", "diagnostics", "loadings")
 ROW_CORRECTIONS: tuple[str, ...] = ("none", "snv", "msc")
+ROWS_ARE: tuple[str, ...] = ("samples", "variables")  # how the file is read: a sample per row, or per column
 
 #: ``ViewState.colour_by`` value meaning "do not colour the points" (URL: ``colour=none``).
 NO_COLOUR = ""
@@ -257,6 +259,7 @@ class ViewState:
 
     dataset: str | None = None
     # the recipe: changing any of these refits
+    rows_are: str = "samples"  # "variables": the file has one variable per row (read transposed)
     variables_off: tuple[str, ...] = ()
     variables_off_set: str | None = None  # code of a stored list of variables left out (long lists stay out of links)
     excluded: tuple[str, ...] = ()
@@ -304,6 +307,7 @@ class ViewState:
         if colour_by is not None and colour_by != NO_COLOUR:
             colour_by = _check_text(colour_by, "colour_by")
         canonical = {
+            "rows_are": _check_choice(self.rows_are, ROWS_ARE, "rows_are"),
             "variables_off": _check_text_tuple(self.variables_off, "variables_off"),
             "excluded": _check_text_tuple(self.excluded, "excluded"),
             "transforms": _check_transforms(self.transforms),
@@ -368,6 +372,7 @@ class ViewState:
             self.ranges,
             self.row_correction,
             self.savgol,
+            self.rows_are,
         )
 
     def diagnostics_key(self) -> tuple:

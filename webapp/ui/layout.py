@@ -173,6 +173,7 @@ def _top_bar(config) -> html.Header:
                     html.Summary("About this data"),
                     html.Div(className="summary-popover", children=[
                         html.Div(id=DATASET_SUMMARY),
+                        S.layout_choice(),
                         html.Div(id=MANAGE_BOX, className="manage-box"),
                     ]),
                 ]),

@@ -47,6 +47,7 @@ _CONTROL_OUTPUTS = [
     Output(S.LOADING_OVERLAY, "options"),
     Output(S.LOADING_OVERLAY, "value"),
     Output(S.SPECTRA_CARD, "hidden"),
+    Output(S.ROWS_ARE, "value"),
 ]
 
 
@@ -58,7 +59,7 @@ def register_spectral_controls(app, services) -> None:
         state, _ = parse_query(search)
         view = _view(services, state)
         if view is None:
-            return [True, True, False, "", True, "", "", "none", [], 15, 2, 1, "", True, [], [], True]
+            return [False, True, False, "", True, "", "", "none", [], 15, 2, 1, "", True, [], [], True, state.rows_are]
         return control_values(view)
 
     @app.callback(url_out, Output(S.SPECTRAL_PROBLEM, "children"),
@@ -104,6 +105,14 @@ def register_spectral_controls(app, services) -> None:
         if current.dataset is None:
             raise PreventUpdate
         return matches_text(matching(_variable_names(services, current), pattern), pattern)
+
+    @app.callback(url_out, Input(S.ROWS_ARE, "value"), State(L.URL, "search"), prevent_initial_call=True)
+    def write_layout(rows_are, search):
+        current, _ = parse_query(search)
+        if current.dataset is None or current.present or rows_are in (None, current.rows_are):
+            raise PreventUpdate
+        # Other names and shapes: start from the default view of the file read the other way.
+        return "?" + to_query(ViewState(dataset=current.dataset, rows_are=rows_are))
 
     @app.callback(url_out, Input(S.LOADING_OVERLAY, "value"), State(L.URL, "search"), prevent_initial_call=True)
     def write_overlay(chosen, search):
@@ -175,6 +184,7 @@ def control_values(view) -> list:
         [{"label": f"PC{a}", "value": a} for a in pcs],
         [a for a in s.loading_overlay if a in pcs],
         not has_axis,
+        s.rows_are,
     ]
 
 
@@ -185,13 +195,15 @@ def step_order_text(steps) -> list:
 
 def spectral_state(current: ViewState, ranges_text, row_correction, savgol_on, window, order, derivative) -> ViewState:
     """The state the spectral controls describe; raises ``OrdinateError``/``ViewStateError`` with a readable message."""
-    ranges = parse_ranges(ranges_text or "")
+    ranges = parse_ranges(ranges_text) if (ranges_text or "").strip() else ()
     savgol = None
     if savgol_on:
         try:
-            savgol = ViewState(savgol=(int(window), int(order), int(derivative))).savgol
+            settings = (int(window), int(order), int(derivative))
         except (TypeError, ValueError):
             raise OrdinateError("Choose a Savitzky–Golay window, order and derivative.") from None
+        try:
+            savgol = ViewState(savgol=settings).savgol
         except ViewStateError:
             raise OrdinateError(f"A Savitzky–Golay filter needs a window longer than its order ({order}) and a "
                                 f"derivative no higher than the order; choose a higher order or a lower "
@@ -212,6 +224,6 @@ def _variable_names(services, state: ViewState) -> list[str]:
     record = services.store.dataset(state.dataset)
     if record is None:
         raise PreventUpdate
-    table = services.compute.table(record)
+    table = services.compute.table(record, state.rows_are)
     label_column = state.id_column if state.id_column in table.frame.columns else table.id_column
     return [c for c in table.numeric_columns if c != label_column]

@@ -44,9 +44,23 @@ SPECTRA_CARD = "spectra-card"
 SPECTRA_GRAPH = "spectra-graph"
 SPECTRA_SHOWN = "spectra-shown"
 
+ROWS_ARE = "rows-are"
+
 SAVGOL_WINDOWS = tuple(range(3, 52, 2))
 ROW_CORRECTION_WORDS = {"none": "None", "snv": "SNV", "msc": "MSC"}
 DERIVATIVE_WORDS = {0: "smoothing", 1: "1st derivative", 2: "2nd derivative"}
+
+
+def layout_choice() -> html.Fieldset:
+    """How the file is read: a sample per row (the usual), or a variable per row (a spectrum per column)."""
+    return html.Fieldset(className="layout-choice", children=[
+        html.Legend("The file's rows are"),
+        dcc.RadioItems(id=ROWS_ARE, value="samples", options=[
+            {"label": "samples (a variable per column)", "value": "samples"},
+            {"label": "variables (a sample per column, as many spectrometers export)", "value": "variables"},
+        ]),
+        html.P("Changing this reads the file again and starts from the default preprocessing.", className="quiet"),
+    ])
 
 
 def wide_variables_field() -> html.Fieldset:

@@ -146,7 +146,7 @@ def resolve(services, state: ViewState) -> Resolved:
     if record is None:
         raise DatasetNotFound(state.dataset)
     state, _ = _expanded(services, state)
-    return _resolve_table(services, record, services.compute.table(record), state, wait=True)
+    return _resolve_table(services, record, services.compute.table(record, state.rows_are), state, wait=True)
 
 
 def _resolve_table(services, record, table, state: ViewState, *, wait: bool) -> Resolved:
@@ -205,7 +205,7 @@ def parallel_analysis_done(services, state: ViewState) -> bool:
         return True
     state, _ = _expanded(services, state)
     try:
-        recipe, _ = recipe_for(state, services.compute.table(record))
+        recipe, _ = recipe_for(state, services.compute.table(record, state.rows_are))
     except OrdinateError:
         return True
     if services.compute.is_complete(record, recipe):
@@ -251,6 +251,7 @@ def recipe_for(state: ViewState, table) -> tuple[Recipe, tuple[str, ...]]:
         ranges=ranges,
         row_correction=row_correction,
         savgol=savgol,
+        rows_are=state.rows_are,
     )
     return recipe, tuple(notices)
 
@@ -269,7 +270,7 @@ def build_view(services, state: ViewState, parse_notices=(), *, wait: bool = Fal
     state, exclusion_notices = _expanded(services, state)
     parse_notices = (*parse_notices, *exclusion_notices)
     try:
-        table = services.compute.table(record)
+        table = services.compute.table(record, state.rows_are)
     except OrdinateError as error:
         return _failed_view(state, record, None, parse_notices, error)
     summary = table_summary(record, table)
