@@ -156,6 +156,7 @@ def loadings_line_figure(
         style,
         title=title,
         notes=notes,
+        note_width=HALF_NOTE_WIDTH,
         xaxis={**axis_style(axis_label, zero_line=False), **({"autorange": "reversed"} if reversed_axis else {})},
         yaxis={**axis_style("Loading"), "zeroline": True},
         showlegend=bool(overlays),

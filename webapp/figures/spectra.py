@@ -89,15 +89,11 @@ def spectra_figure(
     groups = np.asarray([str(g) for g in groups], dtype=object)
     order = group_order(groups)
     styles = group_styles(order)
-    notes = [drawn_note, "Colour: group; hover a line for its sample."
-             + (" Dark and thick: the picked sample." if picked is not None else "")]
-    fig = make_subplots(rows=2, cols=1, shared_xaxes=True, vertical_spacing=0.1,
-                        subplot_titles=(escape_text(raw.title), escape_text(prepared.title)))
-    titles = [{**a.to_plotly_json(), "font": dict(size=style.font_size), "x": 0.0, "xanchor": "left"}
-              for a in fig.layout.annotations]
-    fig.layout.annotations = ()  # replaced, not merged item by item
+    notes = [drawn_note, f"Above: {raw.title}. Below: {prepared.title}.",
+             "Colour: group; hover a line for its sample." + (" Dark and thick: the picked sample."
+                                                              if picked is not None else "")]
+    fig = make_subplots(rows=2, cols=1, shared_xaxes=True, vertical_spacing=0.08)
     fig.update_layout(base_layout(style, title="Spectra of the samples", notes=notes))
-    fig.layout.annotations = [*fig.layout.annotations, *titles]
     # One trace per spectrum: the hover names its sample, the legend its group; the picked
     # sample last, so that it is drawn on top.
     rows = [i for i in range(n) if i != picked] + ([picked] if picked is not None else [])
@@ -121,9 +117,10 @@ def spectra_figure(
             ), row=panel, col=1)
     x_axis = {**axis_style(zero_line=False), **({"autorange": "reversed"} if reversed_axis else {})}
     fig.update_layout(
+        margin={**fig.layout.margin.to_plotly_json(), "b": 96},
         xaxis=x_axis, xaxis2={**x_axis, **axis_style(axis_label, zero_line=False)},
         yaxis=axis_style("Raw value", zero_line=False), yaxis2=axis_style("Preprocessed", zero_line=False),
-        height=560, legend=dict(orientation="h", x=1.0, xanchor="right", y=1.0, yanchor="bottom"),
+        height=560, legend=dict(orientation="h", x=0.0, xanchor="left", y=-0.17, yanchor="top"),
     )
     if shaded_ranges:
         fig.update_layout(shapes=list(fig.layout.shapes) + range_shapes(shaded_ranges))

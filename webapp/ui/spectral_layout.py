@@ -73,11 +73,16 @@ def wide_variables_field() -> html.Fieldset:
         html.P("With * or ?: whole names (* any text, ? one character); otherwise names containing the text. "
                "Case is ignored.", className="quiet hint"),
         html.Div(className="button-row", children=[
-            html.Button("Leave out matches", id=SEARCH_OUT, n_clicks=0, className="small-button"),
-            html.Button("Put back matches", id=SEARCH_IN, n_clicks=0, className="small-button"),
-            html.Button("Keep only matches", id=SEARCH_ONLY, n_clicks=0, className="small-button"),
+            html.Span("Matches:", className="button-row-lead"),
+            html.Button("Leave out", id=SEARCH_OUT, n_clicks=0, className="small-button",
+                        title="Leave the matching variables out of the model"),
+            html.Button("Put back", id=SEARCH_IN, n_clicks=0, className="small-button",
+                        title="Put the matching variables back into the model"),
+            html.Button("Keep only", id=SEARCH_ONLY, n_clicks=0, className="small-button",
+                        title="Keep the matching variables and leave out all others"),
         ]),
         html.Div(className="button-row", children=[
+            html.Span("Every variable:", className="button-row-lead"),
             html.Button("All", id=VARIABLES_EVERY, n_clicks=0, className="small-button",
                         title="Put every variable back into the model"),
             html.Button("None", id=VARIABLES_NONE, n_clicks=0, className="small-button",
