@@ -224,3 +224,11 @@ def test_the_json_report_gives_the_axis_positions(iris_csv):
     assert axis["increasing"] is True and axis["other_variables"] == []
     iris = read_table(iris_csv)
     assert analysis_report(analyse(iris, Recipe()), iris)["variable_axis"] is None
+
+
+def test_a_narrow_table_keeps_its_checklist_and_hides_the_spectral_parts(services, iris_token):
+    view = vm.build_view(services, ViewState(dataset=iris_token))
+    values = sc.control_values(view)
+    assert values[:5] == [False, True, False, "4 of 4 variables in use", True]  # checklist shown, no spectral steps
+    assert values[13] is True and values[16] is True  # no overlay control, no spectra card
+    assert len(view.controls.variable_options) == 4 and view.spectra_figure is None
