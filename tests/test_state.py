@@ -199,9 +199,9 @@ def test_default_values():
 
 def test_default_query_spells_out_every_setting():
     assert to_query(ViewState()) == (
-        "v=1&ds=&off=&ex=&exset=&tf=&missing=drop&centre=mean&scale=unit&id=auto&rng=&rowc=none&sg=off&k=auto&conf=0.95"
+        "v=1&ds=&rows=samples&off=&offset=&ex=&exset=&tf=&missing=drop&centre=mean&scale=unit&id=auto&rng=&rowc=none&sg=off&k=auto&conf=0.95"
         "&x=1&y=2&sigma=2&ellipse=group&t2ellipse=0&colour=auto&arrows=1&biplot=correlation"
-        "&narrows=auto&labels=0&lpc=1&pick=&batch=&view=&present=0&slide=1&show=scores&follow="
+        "&narrows=auto&labels=0&lpc=1&lover=&pick=&batch=&view=&present=0&slide=1&show=scores&follow="
     )
 
 
@@ -440,6 +440,8 @@ ALTERNATIVE_VALUES = {
     "centring": "none",
     "scaling": "pareto",
     "id_column": "batch",
+    "variables_off_set": "Vs3xT0c9LrV2aZk8Qp",
+    "rows_are": "variables",
     "ranges": ((1100.0, 1700.0), (2000.0, 2400.0)),
     "row_correction": "snv",
     "savgol": (15, 2, 1),
@@ -456,6 +458,7 @@ ALTERNATIVE_VALUES = {
     "arrow_limit": 5,
     "labels": True,
     "loading_pc": 2,
+    "loading_overlay": (2, 3),
     "picked": "B-009",
     "batch": "Nb7xT0c9LrV2aZk8",
     "saved_view": "Vw3xT0c9LrV2aZk8Qp",

@@ -183,7 +183,7 @@ def test_wide_data_with_more_variables_than_samples(services):
     five = vm.build_view(services, ViewState(dataset=token, arrow_limit=5), wait=True)
     assert sum(1 for a in five.scores_figure.layout.annotations if a.showarrow) == 5
     notes = " ".join(a.text.replace("<br>", " ") for a in five.scores_figure.layout.annotations)
-    assert "Showing the 5 strongest of 300 variables" in notes
+    assert "Strongest 5 of 300 variables shown" in notes
     assert sum(1 for a in five.circle_figure.layout.annotations if a.showarrow) == 5
     assert len(view.circle_figure.data[-1].x) == 300  # every variable is still a point
     # Sample and component counts: 40 centred samples have at most 39 components.

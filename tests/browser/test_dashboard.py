@@ -134,7 +134,7 @@ def test_sigma_levels_draw_labelled_ellipses(dash_duo, app, iris_csv):
     redraws = dash_duo.driver.execute_script("return window.__redraws;")
     assert redraws["scores-graph"] >= 1
     assert {graph: count for graph, count in redraws.items() if graph != "scores-graph"} == {
-        "variance-graph": 0, "diagnostics-graph": 0, "loadings-graph": 0, "circle-graph": 0}
+        "variance-graph": 0, "diagnostics-graph": 0, "loadings-graph": 0, "circle-graph": 0, "spectra-graph": 0}
 
 
 def test_link_reopens_identical_view_in_a_fresh_browser(dash_duo, app, iris_csv):

@@ -23,7 +23,7 @@ const names = sel => [...document.querySelectorAll(sel + ' .annotation')]
   .filter(a => a.querySelector('.annotation-text-g text'))
   .filter(a => (a.getAttribute('data-index') || '') !== '0' || !/biplot|circle|Showing/.test(a.textContent))
   .map(a => ({text: a.querySelector('text').textContent, box: box(a.querySelector('text'))}))
-  .filter(n => n.text && !/biplot|Dotted circle|Showing the/.test(n.text));
+  .filter(n => n.text && !/biplot|Dotted circle|Strongest /.test(n.text));
 const clashes = list => { const c = [];
   for (let i = 0; i < list.length; i++) for (let j = i + 1; j < list.length; j++)
     if (hit(list[i].box, list[j].box)) c.push(list[i].text + ' / ' + list[j].text);

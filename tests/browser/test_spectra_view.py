@@ -7,6 +7,7 @@ tests/app/test_spectral_view.py; here the page is checked to show them.
 """
 
 import json
+import os
 import re
 from pathlib import Path
 
@@ -59,5 +60,75 @@ def test_spectral_link_draws_a_loading_spectrum_and_reopens_identically(dash_duo
         fresh.get(url)
         again = _wait_for(lambda: (lambda d: d and json.loads(d)[1] == "lines" and d)(fresh.execute_script(LOADINGS_JS)))
         assert json.loads(again) == json.loads(drawn)
+    finally:
+        fresh.quit()
+
+
+SCORES_JS = """
+const plot = document.querySelector('#scores-graph .js-plotly-plot');
+if (!plot || !plot._fullData) { return null; }
+const traces = plot._fullData.map(t => [t.name || '', Array.from(t.x || []), Array.from(t.y || [])]);
+return traces.some(t => t[1].length > 0) ? JSON.stringify(traces) : null;
+"""
+WIDE_TIMEOUT = 180
+# Screenshots at 1280 x 800 of what a user sees (looked at by hand; not compared).
+SHOTS = Path(os.environ.get("ORDINATE_SHOTS", "/tmp/ordinate-shots"))
+
+
+@pytest.fixture
+def wide_app(tmp_path):
+    return create_app(AppConfig(data_dir=tmp_path / "data", max_upload_mb=64, demo_dataset=None))
+
+
+def test_a_500_by_8000_upload_with_a_range_and_snv_chosen_on_the_page_reopens_identically(dash_duo, wide_app,
+                                                                                           tmp_path):
+    from tests.app.test_wide_screens import wide_frame
+
+    SHOTS.mkdir(parents=True, exist_ok=True)
+    path = tmp_path / "wide.csv"
+    wide_frame().to_csv(path, index=False, float_format="%.5g")
+    dash_duo.driver.set_window_size(1280, 800)
+    dash_duo.start_server(wide_app)
+    _upload(dash_duo, path)
+    wait = lambda condition: _wait_for(condition, timeout=WIDE_TIMEOUT)  # noqa: E731
+    wait(lambda: "S0001" in (dash_duo.driver.execute_script(
+        "const p = document.querySelector('#scores-graph .js-plotly-plot');"
+        "return p && p.data ? JSON.stringify(p.data.map(t => t.customdata)) : '';") or ""))
+    wait(lambda: "of 8 000 variables in use" in _text(dash_duo.driver, "#variable-counts"))
+    assert dash_duo.driver.find_elements("css selector", "#variables input") == []  # no checkbox per variable
+    ranges = wait(lambda: (lambda e: e if e.is_displayed() else None)(dash_duo.find_element("#ranges-input")))
+    ranges.send_keys("1200-1800\n")
+    wait(lambda: "rng=1200-1800" in dash_duo.driver.current_url)
+    # As a person would: the range is seen to apply before the next choice.
+    wait(lambda: "3 001 of 8 000 variables in use" in _text(dash_duo.driver, "#variable-counts"))
+    snv = dash_duo.find_element("#row-correction input[value='snv']")
+    dash_duo.driver.execute_script("arguments[0].scrollIntoView({block: 'center'});", snv)
+    snv.click()
+    wait(lambda: "rowc=snv" in dash_duo.driver.current_url and "rng=1200-1800" in dash_duo.driver.current_url)
+    drawn = wait(lambda: (lambda d: d and json.loads(d)[2][0] == 1200 and d)(
+        dash_duo.driver.execute_script(LOADINGS_JS)))
+    kind, mode, x, _y = json.loads(drawn)
+    assert kind == "scatter" and mode == "lines" and x[-1] == 1800 and None not in x
+    order = wait(lambda: _text(dash_duo.driver, "#step-order"))
+    assert order.index("range 1200–1800") < order.index("SNV") < order.index("mean-centring")
+    scores = wait(lambda: dash_duo.driver.execute_script(SCORES_JS))
+    wait(lambda: "spectra shown" in _text(dash_duo.driver, "#spectra-graph"))
+    url = dash_duo.driver.current_url
+    dash_duo.find_element("#dataset-details summary").click()
+    assert dash_duo.find_element("#rows-are input[value='samples']").is_selected()
+    dash_duo.driver.save_screenshot(str(SHOTS / "wide-about.png"))
+    dash_duo.find_element("#dataset-details summary").click()
+    for name, selector in (("wide-rail", ".recipe-rail"), ("wide-loadings", ".loadings-card"),
+                           ("wide-spectra", "#spectra-card")):
+        dash_duo.driver.execute_script(f"document.querySelector('{selector}').scrollIntoView();")
+        dash_duo.driver.save_screenshot(str(SHOTS / f"{name}.png"))
+
+    fresh = webdriver.Chrome(options=_headless_options())
+    try:
+        fresh.set_window_size(1280, 800)
+        fresh.get(url)
+        again = wait(lambda: (lambda d: d and json.loads(d)[2][0] == 1200 and d)(fresh.execute_script(LOADINGS_JS)))
+        assert json.loads(again) == json.loads(drawn)
+        assert json.loads(wait(lambda: fresh.execute_script(SCORES_JS))) == json.loads(scores)
     finally:
         fresh.quit()

@@ -434,7 +434,7 @@ def test_arrow_cap_keeps_the_longest_and_says_so():
     lengths = np.hypot(loadings[:, 0], loadings[:, 1])
     expected = {names[i] for i in np.argsort(-lengths)[:20]}
     assert set(arrows.variables) == expected and arrows.left_out == 10
-    assert "Showing the 20 strongest of 30 variables" in arrows.caption
+    assert "Strongest 20 of 30 variables shown" in arrows.caption
     assert "longest" not in loading_arrows(loadings, names, np.array([2.0, 1.0]), "distance", 3.0).caption
 
 

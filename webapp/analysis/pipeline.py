@@ -26,6 +26,7 @@ from webapp.analysis.errors import OrdinateError
 from webapp.analysis.pca import PCAFit, fit_pca
 from webapp.analysis.recipe import PreparedData, Recipe, prepare
 from webapp.analysis.selection import ComponentAdvice, advise_components
+from webapp.analysis.variable_axis import table_axis
 
 REPORT_VERSION = 2  # 2: loadings and scores of every computed component, `kept` names K of them
 MAX_REPORTED_EIGENVALUES = 1000
@@ -211,7 +212,28 @@ def analysis_report(analysis: Analysis, table=None) -> dict:
     report["t2_flagged"] = [s for s, f in zip(prepared.sample_labels, diag.t2_flagged) if f]
     report["q_flagged"] = [s for s, f in zip(prepared.sample_labels, diag.q_flagged) if f]
     report["warnings"] = list(getattr(table, "warnings", ())) + list(analysis.warnings)
+    report["variable_axis"] = axis_report(table, fitted.recipe, prepared.variables)
     return report
+
+
+def axis_report(table, recipe: Recipe, variables) -> dict | None:
+    """The variable axis of the model's variables (positions in axis order), or None without one.
+
+    ``positions`` maps each model variable on the axis to its number, so a
+    loading spectrum can be drawn from the report alone; ``other_variables``
+    are the model's variables that are not on the axis.
+    """
+    if table is None or not hasattr(table, "numeric_columns"):
+        return None
+    axis = table_axis(table, recipe.id_column)
+    if axis is None:
+        return None
+    position = dict(zip(axis.names, axis.positions.tolist()))
+    order = {name: i for i, name in enumerate(axis.names)}
+    on_axis = sorted((v for v in variables if v in position), key=order.__getitem__)
+    return {"label": axis.label, "prefix": axis.prefix, "unit": axis.unit, "increasing": axis.increasing,
+            "positions": {v: float(position[v]) for v in on_axis},
+            "other_variables": [v for v in variables if v not in position]}
 
 
 def component_names(pca: PCAFit) -> list[str]:

@@ -66,6 +66,7 @@ RECIPE_VERSION = 1
 # Recipes with spectral steps are written as version 2; without them, as before
 # (so earlier recipes keep their canonical JSON and cache keys).
 SPECTRAL_RECIPE_VERSION = 2
+ROWS_ARE = ("samples", "variables")  # the file's rows are samples, or variables (see ingest.transpose)
 MIN_SAMPLES = 3
 MIN_VARIABLES = 2
 
@@ -92,9 +93,11 @@ class Recipe:
     ranges: tuple[tuple[float, float], ...] = ()
     row_correction: str = "none"
     savgol: tuple[int, int, int] | None = None  # window, polynomial order, derivative
+    rows_are: str = "samples"  # how the file is read: "variables" when each column is a sample (transposed)
 
     def __post_init__(self):
         _check_choice("row correction", self.row_correction, ROW_CORRECTIONS)
+        _check_choice("layout (rows are)", self.rows_are, ROWS_ARE)
         object.__setattr__(self, "ranges", canonical_ranges(self.ranges))
         object.__setattr__(self, "savgol", check_savgol(self.savgol))
         _check_choice("missing-value strategy", self.missing, MISSING_STRATEGIES)
@@ -121,8 +124,10 @@ class Recipe:
         data = asdict(self)
         data["transforms"] = dict(self.transforms)
         data["version"] = RECIPE_VERSION
-        for name in ("ranges", "row_correction", "savgol"):
+        for name in ("ranges", "row_correction", "savgol", "rows_are"):
             del data[name]
+        if self.rows_are != "samples":  # only when used: earlier recipes keep their exact form (and cache keys)
+            data["rows_are"] = self.rows_are
         if self.uses_axis:  # new fields only when used: earlier recipes keep their exact form
             data["version"] = SPECTRAL_RECIPE_VERSION
             data["ranges"] = [list(pair) for pair in self.ranges]
@@ -148,6 +153,7 @@ class Recipe:
                 ranges=tuple(tuple(pair) for pair in data.get("ranges") or ()),
                 row_correction=data.get("row_correction", "none"),
                 savgol=None if data.get("savgol") is None else tuple(data["savgol"]),
+                rows_are=data.get("rows_are", "samples"),
             )
         except (TypeError, AttributeError) as error:
             raise OrdinateError(f"The saved preprocessing recipe is malformed ({error}).") from error

@@ -200,7 +200,8 @@ def _run_analyze(args) -> int:
 
     table = _read(args)
     recipe = _recipe_from_options(args, table, ranges=parse_ranges(args.ranges) if args.ranges else (),
-                                  row_correction=args.row_correction, savgol=_parse_savgol(args.savgol))
+                                  row_correction=args.row_correction, savgol=_parse_savgol(args.savgol),
+                                  rows_are=args.rows_are)
     analysis = analyse(table, recipe, args.components, args.confidence)
     report = analysis_report(analysis, table)
     return _write_analysis(args, report, lambda: model_from_analysis(analysis))

@@ -26,7 +26,7 @@ from webapp.figures._points import as_float32
 from webapp.figures.palette import NEGATIVE_COLOUR, POSITIVE_COLOUR
 from webapp.figures.arrow_labels import ARROW_COLOUR, NOMINAL_PLOT_PX, arrow_annotations
 from webapp.figures.label_placement import PlotFrame
-from webapp.figures.text import escape_text, percent
+from webapp.figures.text import count_text, escape_text, percent
 from webapp.figures.theme import (
     AXIS_LINE_COLOUR,
     HALF_NOTE_WIDTH,
@@ -36,10 +36,14 @@ from webapp.figures.theme import (
     style_for,
 )
 
-__all__ = ["loadings_bar_figure", "loadings_line_figure", "correlation_circle_figure", "CIRCLE_RANGE"]
+__all__ = ["loadings_bar_figure", "loadings_line_figure", "correlation_circle_figure", "range_shapes", "CIRCLE_RANGE",
+           "OVERLAY_COLOURS"]
 
 #: Both axes of the correlation circle span this range.
 CIRCLE_RANGE = (-1.1, 1.1)
+#: Colours of the loading spectra of several components (the chosen one first); Okabe-Ito, no grey.
+OVERLAY_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9")
+RANGE_FILL = "rgba(0, 114, 178, 0.07)"
 _CIRCLE_POINTS = 241
 
 
@@ -112,12 +116,19 @@ def loadings_line_figure(
     reversed_axis: bool = False,
     left_out: Sequence[str] = (),
     presentation: bool = False,
+    overlays: Sequence[tuple[int, float, np.ndarray]] = (),
+    mean_spectrum: tuple[np.ndarray, np.ndarray] | None = None,
+    shaded_ranges: Sequence[tuple[float, float]] = (),
 ) -> go.Figure:
-    """The loadings of one component along the variable axis, as one line.
+    """The loadings of one component along the variable axis, as one line; other components overlaid.
 
     ``positions`` and ``loadings`` are in axis order; the line is broken after
     each index in ``breaks_after`` (a gap between kept ranges). ``left_out``
     names variables that are not on the axis (not drawn; a note says so).
+    ``overlays`` are further components ``(component, explained ratio,
+    loadings)`` drawn the same way in other colours (dashed). ``mean_spectrum``
+    ``(positions, values)`` is drawn in grey against a right-hand axis of its
+    own, over the whole axis; ``shaded_ranges`` are the kept ranges, shaded.
     Loadings are sent as float32 (half the payload), positions as float64 so
     that hover shows them exactly.
     """
@@ -127,27 +138,63 @@ def loadings_line_figure(
     if x.size == 0:
         raise OrdinateError("There are no variables on the axis to show.")
     cuts = np.asarray(sorted(breaks_after), dtype=int) + 1
-    if cuts.size:  # a NaN between segments breaks the line (no line across a gap)
-        x = np.insert(x, cuts, np.nan)
-        y = np.insert(y, cuts, np.float32(np.nan))
+    x = _broken(x, cuts)
+    lines = [(int(component), float(explained_ratio), y)]
+    lines += [(int(c), float(r), as_float32(v, "loadings", positions.size)) for c, r, v in overlays]
     notes = ["Loading spectrum: one point per variable on the axis."]
+    if overlays:
+        notes.append("Overlaid: " + ", ".join(f"PC{c} ({percent(r)})" for c, r, _ in lines) + ".")
+    if mean_spectrum is not None:
+        notes.append("Grey: the mean spectrum of the samples in the model, before preprocessing (right-hand axis)"
+                     + ("; shaded: the ranges kept." if shaded_ranges else "."))
     if left_out:
         shown = ", ".join(f"'{escape_text(v)}'" for v in left_out[:5]) + (" and others" if len(left_out) > 5 else "")
         notes.append(f"Not on the axis, so not drawn here: {shown}.")
+    title = f"Loadings on PC{int(component)} · {percent(explained_ratio)}" if not overlays else \
+        "Loadings on " + ", ".join(f"PC{c}" for c, _, _ in lines)
     fig = new_figure(
         style,
-        title=f"Loadings on PC{int(component)} · {percent(explained_ratio)}",
+        title=title,
         notes=notes,
+        note_width=HALF_NOTE_WIDTH,
         xaxis={**axis_style(axis_label, zero_line=False), **({"autorange": "reversed"} if reversed_axis else {})},
         yaxis={**axis_style("Loading"), "zeroline": True},
-        showlegend=False,
+        showlegend=bool(overlays),
+        legend={"orientation": "h", "x": 1.0, "xanchor": "right", "y": 1.0, "yanchor": "bottom"},
     )
-    fig.add_trace(go.Scatter(
-        x=x, y=y, mode="lines", connectgaps=False, name=f"PC{int(component)}",
-        line=dict(color=POSITIVE_COLOUR, width=style.line_width),
-        hovertemplate="position %{x}<br>loading %{y:.4f}<extra></extra>",
-    ))
+    for index, (number, ratio, values) in enumerate(lines):  # the chosen component first, on top of the others
+        fig.add_trace(go.Scatter(
+            x=x, y=_broken(values, cuts), mode="lines", connectgaps=False, name=f"PC{number} · {percent(ratio)}",
+            line=dict(color=OVERLAY_COLOURS[index % len(OVERLAY_COLOURS)], width=style.line_width,
+                      dash="solid" if index == 0 else "dash"),
+            hovertemplate=f"PC{number}<br>position %{{x}}<br>loading %{{y:.4f}}<extra></extra>",
+        ))
+    if mean_spectrum is not None:
+        mean_x, mean_y = mean_spectrum
+        fig.add_trace(go.Scatter(
+            x=np.asarray(mean_x, dtype=np.float64), y=as_float32(mean_y, "mean spectrum"), mode="lines",
+            yaxis="y2", name="mean spectrum", showlegend=False,
+            line=dict(color=AXIS_LINE_COLOUR, width=style.line_width * 0.75), opacity=0.8,
+            hovertemplate="mean spectrum<br>position %{x}<br>value %{y:.4g}<extra></extra>",
+        ))
+        fig.update_layout(yaxis2={**axis_style("Mean spectrum", zero_line=False), "overlaying": "y",
+                                  "side": "right", "showgrid": False})
+    if shaded_ranges:
+        fig.update_layout(shapes=list(fig.layout.shapes) + range_shapes(shaded_ranges))
     return fig
+
+
+def _broken(values: np.ndarray, cuts: np.ndarray) -> np.ndarray:
+    """``values`` with a NaN inserted at each cut (a line drawn through it is broken there)."""
+    if not cuts.size:
+        return values
+    return np.insert(values, cuts, values.dtype.type(np.nan))
+
+
+def range_shapes(ranges: Sequence[tuple[float, float]]) -> list[dict]:
+    """Light shading of the kept ranges of the variable axis, across the plot's height, under the data."""
+    return [dict(type="rect", xref="x", yref="paper", x0=float(lo), x1=float(hi), y0=0, y1=1, layer="below",
+                 fillcolor=RANGE_FILL, line=dict(width=0), name="kept range") for lo, hi in ranges]
 
 
 def correlation_circle_figure(
@@ -187,8 +234,8 @@ def correlation_circle_figure(
     notes = ["Dotted circle: under 25 % of a variable's variance shown."]
     if max_arrows is not None and named.size > max_arrows:
         named = np.sort(np.argsort(-radius_of, kind="stable")[:max_arrows])
-        notes.append(f"Showing the {max_arrows} strongest of {len(names)} variables (farthest from the centre); "
-                     f"the others are dots (hover to read them).")
+        notes.append(f"Strongest {max_arrows} of {count_text(len(names))} variables shown (farthest from the "
+                     f"centre); the others are dots (hover to read them).")
     if not placed.all():
         rx, ry = np.where(placed, rx, np.nan), np.where(placed, ry, np.nan)
         notes.append(_unplaced_note([names[i] for i in np.flatnonzero(~placed)]))

@@ -134,7 +134,7 @@ class LoadingArrows:
             )
         if self.left_out:
             shown = len(self.variables)
-            text += f" Showing the {shown} strongest of {shown + self.left_out} variables (longest arrows)."
+            text += f" Strongest {shown} of {count_text(shown + self.left_out)} variables shown (longest arrows)."
         return text
 
 

@@ -13,29 +13,10 @@ from typing import Any
 from urllib.parse import parse_qsl, quote, urlencode
 
 from webapp.state.view_state import (
-    BIPLOT_SCALINGS,
-    SLIDE_FIGURES,
-    CENTRINGS,
-    ELLIPSE_MODES,
-    MAX_ARROWS,
-    MAX_CONFIDENCE,
-    MAX_PC,
-    MAX_SIGMA,
-    MAX_SIGMA_LEVELS,
-    MAX_SLIDE,
-    MIN_CONFIDENCE,
-    MISSING_POLICIES,
-    NO_COLOUR,
-    MAX_RANGES,
-    MAX_SAVGOL_DERIVATIVE,
-    MAX_SAVGOL_ORDER,
-    MAX_SAVGOL_WINDOW,
-    ROW_CORRECTIONS,
-    SCALINGS,
-    TRANSFORMS,
-    _TOKEN_PATTERN,
-    ViewState,
-    ViewStateError,
+    BIPLOT_SCALINGS, SLIDE_FIGURES, CENTRINGS, ELLIPSE_MODES, MAX_ARROWS, MAX_OVERLAID, MAX_CONFIDENCE, MAX_PC,
+    MAX_SIGMA, MAX_SIGMA_LEVELS, MAX_SLIDE, MIN_CONFIDENCE, MISSING_POLICIES, NO_COLOUR, MAX_RANGES,
+    MAX_SAVGOL_DERIVATIVE, MAX_SAVGOL_ORDER, MAX_SAVGOL_WINDOW, ROW_CORRECTIONS, ROWS_ARE, SCALINGS,
+    TRANSFORMS, _TOKEN_PATTERN, ViewState, ViewStateError,
 )
 
 __all__ = [
@@ -272,6 +253,16 @@ def _write_savgol(value: tuple[int, int, int] | None) -> str:
     return "off" if value is None else ",".join(map(str, value))
 
 
+def _read_overlay(text: str) -> tuple[int, ...]:
+    parts = [p.strip() for p in text.split(",")] if text.strip() else []
+    try:
+        if all(_WHOLE_NUMBER_PATTERN.fullmatch(p) for p in parts):
+            return ViewState(loading_overlay=tuple(int(p) for p in parts)).loading_overlay
+    except ViewStateError:
+        pass
+    raise _Unusable(f"up to {MAX_OVERLAID} component numbers from 1 to {MAX_PC} separated by commas, or nothing")
+
+
 def _read_label(text: str) -> str:
     return text  # empty values are dropped before reading (they mark an empty list)
 
@@ -289,7 +280,9 @@ def _write_transform_pair(pair: tuple[str, str]) -> str:
 
 PARAMETERS: tuple[UrlParameter, ...] = (
     UrlParameter("ds", "dataset", "data", _read_token, _write_optional),
+    UrlParameter("rows", "rows_are", "recipe", _read_choice(ROWS_ARE), str),
     UrlParameter("off", "variables_off", "recipe", _read_label, str, repeated=True),
+    UrlParameter("offset", "variables_off_set", "recipe", _read_token, _write_optional),
     UrlParameter("ex", "excluded", "recipe", _read_label, str, repeated=True),
     UrlParameter("exset", "excluded_set", "recipe", _read_token, _write_optional),
     UrlParameter("tf", "transforms", "recipe", _read_transform_pair, _write_transform_pair, repeated=True),
@@ -313,6 +306,7 @@ PARAMETERS: tuple[UrlParameter, ...] = (
     UrlParameter("narrows", "arrow_limit", "drawing", _read_arrow_limit, lambda n: "auto" if n is None else str(n)),
     UrlParameter("labels", "labels", "drawing", _read_flag, _write_flag),
     UrlParameter("lpc", "loading_pc", "drawing", _read_whole(1, MAX_PC), str),
+    UrlParameter("lover", "loading_overlay", "drawing", _read_overlay, lambda pcs: ",".join(map(str, pcs))),
     UrlParameter("pick", "picked", "drawing", _read_optional_label, _write_optional),
     UrlParameter("batch", "batch", "drawing", _read_token, _write_optional),
     UrlParameter("view", "saved_view", "drawing", _read_token, _write_optional),
@@ -359,10 +353,7 @@ UpgradeStep = Callable[[list[tuple[str, str]]], tuple[list[tuple[str, str]], lis
 
 _UPGRADES: dict[int, UpgradeStep] = {}
 """``_UPGRADES[n]`` turns the (name, value) pairs of a format-``n`` link into format ``n + 1``.
-
-Format 1 is the current and only format, so there is nothing to upgrade yet;
-see the module docstring for how to add a step.
-"""
+Format 1 is the current and only format (see the package docstring for how to add a step)."""
 
 
 def _shown(text: str) -> str:

@@ -24,6 +24,7 @@ __all__ = [
     "SCALINGS",
     "TRANSFORMS",
     "ROW_CORRECTIONS",
+    "ROWS_ARE",
     "MAX_RANGES",
     "MAX_SAVGOL_WINDOW",
     "MAX_SAVGOL_ORDER",
@@ -38,6 +39,7 @@ __all__ = [
     "MAX_CONFIDENCE",
     "MAX_SLIDE",
     "MAX_ARROWS",
+    "MAX_OVERLAID",
     "PAGE_ARROWS",
     "SLIDE_ARROWS",
 ]
@@ -53,6 +55,7 @@ BIPLOT_SCALINGS: tuple[str, ...] = ("correlation", "distance")
 # The figure a saved view shows as a slide, filling the screen.
 SLIDE_FIGURES: tuple[str, ...] = ("scores", "variance", "diagnostics", "loadings")
 ROW_CORRECTIONS: tuple[str, ...] = ("none", "snv", "msc")
+ROWS_ARE: tuple[str, ...] = ("samples", "variables")  # how the file is read: a sample per row, or per column
 
 #: ``ViewState.colour_by`` value meaning "do not colour the points" (URL: ``colour=none``).
 NO_COLOUR = ""
@@ -67,6 +70,7 @@ MAX_ARROWS = 200  # most arrows (and correlation-circle names) a link may ask fo
 PAGE_ARROWS = 20  # arrows drawn by default on the dashboard ...
 SLIDE_ARROWS = 10  # ... and on a slide, read from the back of a room
 MAX_RANGES = 20  # variable ranges a link may hold
+MAX_OVERLAID = 5  # further components a loading spectrum may overlay
 MAX_SAVGOL_WINDOW = 999  # the engine also checks the window against the data
 MAX_SAVGOL_ORDER = 6
 MAX_SAVGOL_DERIVATIVE = 2
@@ -218,6 +222,15 @@ def _check_savgol(value: Any) -> tuple[int, int, int] | None:
     return window, order, derivative
 
 
+def _check_overlay(values: Any) -> tuple[int, ...]:
+    if isinstance(values, (str, bytes)):
+        raise ViewStateError(f"loading_overlay must be a sequence of component numbers, got {values!r}.")
+    numbers_ = tuple(sorted({_check_int(v, 1, MAX_PC, "an overlaid component") for v in values}))
+    if len(numbers_) > MAX_OVERLAID:
+        raise ViewStateError(f"at most {MAX_OVERLAID} components can be overlaid, got {len(numbers_)}.")
+    return numbers_
+
+
 # --------------------------------------------------------------------------------------
 # The state
 # --------------------------------------------------------------------------------------
@@ -246,7 +259,9 @@ class ViewState:
 
     dataset: str | None = None
     # the recipe: changing any of these refits
+    rows_are: str = "samples"  # "variables": the file has one variable per row (read transposed)
     variables_off: tuple[str, ...] = ()
+    variables_off_set: str | None = None  # code of a stored list of variables left out (long lists stay out of links)
     excluded: tuple[str, ...] = ()
     excluded_set: str | None = None  # code of a stored list of excluded samples (long lists stay out of links)
     transforms: tuple[tuple[str, str], ...] = ()
@@ -272,6 +287,7 @@ class ViewState:
     arrow_limit: int | None = None  # the N strongest arrows are drawn; None: PAGE_ARROWS, or SLIDE_ARROWS on slides
     labels: bool = False
     loading_pc: int = 1
+    loading_overlay: tuple[int, ...] = ()  # further components drawn on the loading spectrum (spectra)
     picked: str | None = None
     batch: str | None = None  # dataset code of a new batch scored against this view's model
     saved_view: str | None = None
@@ -281,7 +297,7 @@ class ViewState:
     follow: str | None = None  # code of a presenter's follow session this page follows (read-only)
 
     def __post_init__(self) -> None:
-        for name in ("dataset", "batch", "excluded_set", "follow"):
+        for name in ("dataset", "batch", "excluded_set", "variables_off_set", "follow"):
             code = getattr(self, name)
             if code is not None and not (isinstance(code, str) and _TOKEN_PATTERN.fullmatch(code)):
                 raise ViewStateError(
@@ -291,6 +307,7 @@ class ViewState:
         if colour_by is not None and colour_by != NO_COLOUR:
             colour_by = _check_text(colour_by, "colour_by")
         canonical = {
+            "rows_are": _check_choice(self.rows_are, ROWS_ARE, "rows_are"),
             "variables_off": _check_text_tuple(self.variables_off, "variables_off"),
             "excluded": _check_text_tuple(self.excluded, "excluded"),
             "transforms": _check_transforms(self.transforms),
@@ -315,6 +332,7 @@ class ViewState:
                                                                             "arrow_limit"),
             "labels": _check_bool(self.labels, "labels"),
             "loading_pc": _check_int(self.loading_pc, 1, MAX_PC, "loading_pc"),
+            "loading_overlay": _check_overlay(self.loading_overlay),
             "picked": _check_optional_text(self.picked, "picked"),
             "saved_view": _check_view_id(self.saved_view),
             "present": _check_bool(self.present, "present"),
@@ -343,6 +361,7 @@ class ViewState:
         """The fields that change the fitted model, for cache keys (with the dataset's own key)."""
         return (
             self.variables_off,
+            self.variables_off_set,
             self.excluded,
             self.excluded_set,
             self.transforms,
@@ -353,6 +372,7 @@ class ViewState:
             self.ranges,
             self.row_correction,
             self.savgol,
+            self.rows_are,
         )
 
     def diagnostics_key(self) -> tuple:

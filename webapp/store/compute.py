@@ -37,7 +37,7 @@ import diskcache
 
 from webapp.analysis import ENGINE_VERSION
 from webapp.analysis.errors import OrdinateError
-from webapp.analysis.ingest import Table, read_table
+from webapp.analysis.ingest import Table, read_table, transpose_table
 from webapp.analysis.pipeline import (
     FittedRecipe,
     fit_recipe,
@@ -73,7 +73,11 @@ class ComputeLayer:
 
     # --- public --------------------------------------------------------------
 
-    def table(self, record: DatasetRecord) -> Table:
+    def table(self, record: DatasetRecord, rows_are: str = "samples") -> Table:
+        """The parsed file; ``rows_are="variables"``: read with one variable per row (each column a sample)."""
+        if rows_are == "variables":
+            return self._cached(f"table-transposed/{ENGINE_VERSION}/{record.content_hash}",
+                                lambda: transpose_table(self.table(record), f"'{record.filename}'"), "parses")
         key = f"table/{ENGINE_VERSION}/{record.content_hash}"
         return self._cached(key, lambda: read_table(self.store.blob_path(record), filename=record.filename), "parses")
 
@@ -128,7 +132,7 @@ class ComputeLayer:
     def pca_fit(self, record: DatasetRecord, recipe: Recipe) -> FittedRecipe:
         """The fit without parallel analysis: its advice recommends K by the broken-stick model."""
         key = fit_key(record.content_hash, recipe)
-        return self._cached(key, lambda: fit_recipe(self.table(record), recipe, parallel=False), "fits")
+        return self._cached(key, lambda: fit_recipe(self.table(record, recipe.rows_are), recipe, parallel=False), "fits")
 
     def first_fit(self, record: DatasetRecord, recipe: Recipe) -> tuple[FittedRecipe, bool]:
         """The complete fit when it is ready, else the PCA-only fit at once.

@@ -48,6 +48,7 @@ NO_COLOUR_VALUE = "__none__"
 
 def register_callbacks(app, services) -> None:
     from webapp.ui.sharing import register_sharing_callbacks
+    from webapp.ui.spectral_controls import register_spectral_controls
 
     _register_show_view(app, services)
     register_sharing_callbacks(app, services)
@@ -55,6 +56,7 @@ def register_callbacks(app, services) -> None:
     _register_actions(app, services)
     _register_clientside(app)
     register_picking(app)
+    register_spectral_controls(app, services)
 
 
 # --- URL -> everything shown ---------------------------------------------------------
@@ -368,13 +370,13 @@ def _register_write_url(app) -> None:
 def state_from_controls(current: ViewState, all_variables, *, id_column, colour, variables_in, missing, centring,
                         scaling, pc_x, pc_y, sigma, ellipse_by, overlays, biplot, components, confidence,
                         loading_pc, arrow_limit=AUTO) -> ViewState:
-    """The view state the controls describe; fields without a control keep their value."""
+    """The view state the controls describe; fields without a control (a wide table lists no variables) keep theirs."""
     overlays = overlays or ()
     chosen = set(variables_in or ())
     return current.replace(
         id_column=None if id_column in (None, AUTO) else id_column,
         colour_by=None if colour in (None, AUTO) else (NO_COLOUR if colour == NO_COLOUR_VALUE else colour),
-        variables_off=tuple(v for v in all_variables if v not in chosen),
+        variables_off=tuple(v for v in all_variables if v not in chosen) if all_variables else current.variables_off,
         missing=missing or current.missing,
         centring=centring or current.centring,
         scaling=scaling or current.scaling,

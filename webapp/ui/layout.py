@@ -12,6 +12,7 @@ from dash import dcc, html
 from webapp.figures import GRAPH_CONFIG
 from webapp.figures.text import level_percent
 from webapp.state import BIPLOT_SCALINGS, CENTRINGS, MISSING_POLICIES, PAGE_ARROWS, SCALINGS, TRANSFORMS
+from webapp.ui import spectral_layout as S
 
 URL = "url"
 UPLOAD_RESULT = "upload-result"
@@ -173,6 +174,7 @@ def _top_bar(config) -> html.Header:
                     html.Summary("About this data"),
                     html.Div(className="summary-popover", children=[
                         html.Div(id=DATASET_SUMMARY),
+                        S.layout_choice(),
                         html.Div(id=MANAGE_BOX, className="manage-box"),
                     ]),
                 ]),
@@ -255,12 +257,14 @@ def _recipe_rail() -> html.Aside:
             html.P(id=RECIPE_WORDS, className="recipe-words"),
             _field("Label column", dcc.Dropdown(id=ID_COLUMN, clearable=False)),
             _field("Colour by", dcc.Dropdown(id=COLOUR_BY, clearable=False)),
-            html.Fieldset(className="field", children=[
+            html.Fieldset(id=S.VARIABLES_FIELD, className="field", children=[
                 html.Legend("Variables in the model"),
                 html.Button("All", id=VARIABLES_ALL, className="small-button", n_clicks=0),
                 dcc.Checklist(id=VARIABLES, className="variable-list", inputClassName="check"),
             ]),
-            html.Fieldset(className="field", children=[
+            S.wide_variables_field(),
+            S.spectral_field(),
+            html.Fieldset(id=S.TRANSFORM_FIELD, className="field", children=[
                 html.Legend("Transform a variable"),
                 dcc.Dropdown(id=TRANSFORM_VARIABLE, placeholder="variable…"),
                 dcc.Dropdown(id=TRANSFORM_KIND, options=[{"label": t, "value": t} for t in TRANSFORMS],
@@ -283,7 +287,7 @@ def _recipe_rail() -> html.Aside:
 def _cards() -> html.Main:
     return html.Main(className="cards", children=[
         html.Section(id=SAVED_BANNER, className="card saved-banner", hidden=True),
-        _scores_card(), _variance_card(), _diagnostics_card(), _loadings_card(),
+        _scores_card(), _variance_card(), _diagnostics_card(), _loadings_card(), S.spectra_card(),
         html.Section(className="card saved-card", children=[
             html.H2("Saved views of this dataset"), html.Div(id=SAVED_LIST),
         ]),
@@ -383,6 +387,7 @@ def _loadings_card() -> html.Section:
             html.H2("Loadings"),
             html.Div(className="toolbar", children=[
                 _inline("component", dcc.Dropdown(id=LOADING_PC, clearable=False, className="pc-select")),
+                S.overlay_control(),
             ]),
         ]),
         html.Div(className="loadings-body", children=[

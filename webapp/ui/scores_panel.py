@@ -103,7 +103,7 @@ def score_batch(services, record, fitted, diagnostics) -> tuple[BatchScores | No
     """A new batch scored against the model at the view's K: the scores, and notices for the page."""
     name = record.display_name
     try:
-        table = services.compute.table(record)
+        table = services.compute.table(record, fitted.recipe.rows_are)  # laid out as the model's own file
         model = model_from_analysis(Analysis(fitted, diagnostics))
         projection = project_table(model, table, diagnostics.confidence)
     except OrdinateError as error:

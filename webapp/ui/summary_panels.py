@@ -25,6 +25,15 @@ def table_summary(record, table) -> dict:
     }
 
 
+_NAMED_VARIABLES = 60  # beyond this many, the provenance names the first and last few (the exports list all)
+
+
+def _names(variables) -> str:
+    if len(variables) <= _NAMED_VARIABLES:
+        return ", ".join(variables)
+    return f"{', '.join(variables[:5])}, … {', '.join(variables[-3:])} (every name in the loadings CSV)"
+
+
 def _delimiter_name(delimiter: str) -> str:
     return {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}.get(delimiter, repr(delimiter))
 
@@ -50,8 +59,9 @@ def provenance(resolved: Resolved, diagnostics, colour_column) -> dict:
         "Dataset": record.display_name,
         "Fingerprint (SHA-256)": record.content_hash,
         "Samples used": f"{fitted.pca.n_samples} of {resolved.table.n_rows}",
-        "Variables used": f"{fitted.pca.n_variables}: {', '.join(fitted.prepared.variables)}",
-        "Preprocessing": " ".join(resolved.recipe.describe()),
+        "Variables used": f"{fitted.pca.n_variables}: {_names(fitted.prepared.variables)}",
+        "Preprocessing, in order": " → ".join(resolved.recipe.steps()),
+        "Preprocessing details": " ".join(resolved.recipe.describe()),
         "Solver": fitted.pca.solver,
         "Components for T² and Q": f"{diagnostics.components} at {level_percent(diagnostics.confidence)} confidence",
         "Q limit": diagnostics.q_limit_method,

@@ -9,7 +9,6 @@ import numpy as np
 import plotly.graph_objects as go
 
 from webapp.analysis.diagnostics import q_residual_row, t2_contributions
-from webapp.analysis.variable_axis import MIN_AXIS_VARIABLES, table_axis
 from webapp.figures import (
     axis_title,
     contributions_figure,
@@ -18,11 +17,16 @@ from webapp.figures import (
     loadings_line_figure,
 )
 from webapp.state import ViewState
+from webapp.figures.spectra import contributions_line_figure
 from webapp.ui.scores_panel import BatchScores
+from webapp.ui.spectra_panels import axis_variables, mean_spectrum
 
 
-def contributions_panel(state: ViewState, fitted, diagnostics, batch: BatchScores | None = None):
-    """Why the picked sample stands out: a sample of the model, or else of the new batch."""
+def contributions_panel(state: ViewState, fitted, diagnostics, batch: BatchScores | None = None, table=None):
+    """Why the picked sample stands out: a sample of the model, or else of the new batch.
+
+    Along the variable axis (lines) when ``table`` has one, else one bar per variable.
+    """
     if state.picked is None:
         return None
     labels = fitted.prepared.sample_labels
@@ -45,12 +49,17 @@ def contributions_panel(state: ViewState, fitted, diagnostics, batch: BatchScore
     from webapp.figures import GRAPH_CONFIG
 
     loadings = fitted.pca.loadings[:, :k]
-    figure = contributions_figure(
-        variables=fitted.prepared.variables,
-        t2_contributions=t2_contributions(x_row, loadings, fitted.pca.eigenvalues[:k]),
-        q_residuals=q_residual_row(x_row, loadings),
-        label=state.picked, presentation=state.present,
-    )
+    t2_parts, residuals = t2_contributions(x_row, loadings, fitted.pca.eigenvalues[:k]), q_residual_row(x_row, loadings)
+    on_axis = axis_variables(table, fitted) if table is not None else None
+    if on_axis is None:
+        figure = contributions_figure(variables=fitted.prepared.variables, t2_contributions=t2_parts,
+                                      q_residuals=residuals, label=state.picked, presentation=state.present)
+    else:
+        figure = contributions_line_figure(
+            positions=on_axis.positions, t2_contributions=t2_parts[on_axis.columns],
+            q_residuals=residuals[on_axis.columns], label=state.picked, axis_label=on_axis.axis.label,
+            breaks_after=on_axis.breaks_after, reversed_axis=not on_axis.axis.increasing,
+            left_out=len(on_axis.left_out), presentation=state.present)
     leave_out = [] if whose != "sample" else [html.Button(
         "Leave this sample out", id={"type": "exclude-picked", "index": 0}, n_clicks=0, className="small-button")]
     return html.Div([
@@ -63,25 +72,25 @@ def contributions_panel(state: ViewState, fitted, diagnostics, batch: BatchScore
     ])
 
 
-def loadings_panel(table, fitted, component: int, presentation: bool) -> go.Figure:
-    """Loadings of one component: a line along the variable axis on spectra, bars otherwise."""
+def loadings_panel(table, fitted, component: int, presentation: bool, overlay: tuple[int, ...] = ()) -> go.Figure:
+    """Loadings of one component: a line along the variable axis on spectra (``overlay``: more
+    components drawn with it; the mean spectrum and the kept ranges behind), bars otherwise."""
     pca, variables = fitted.pca, fitted.prepared.variables
     loadings = pca.loadings[:, component - 1]
     ratio = float(pca.explained_variance_ratio[component - 1])
-    axis = table_axis(table, fitted.prepared.preprocessor.recipe.id_column)
-    index = {} if axis is None else {name: i for i, name in enumerate(axis.names)}
-    on_axis = [j for j, v in enumerate(variables) if v in index]
-    if len(on_axis) < MIN_AXIS_VARIABLES:
+    on_axis = axis_variables(table, fitted)
+    if on_axis is None:
         return loadings_bar_figure(variables=variables, loadings=loadings, component=component,
                                    explained_ratio=ratio, presentation=presentation)
-    on_axis.sort(key=lambda j: index[variables[j]])
-    axis_index = np.array([index[variables[j]] for j in on_axis])
+    columns = on_axis.columns
+    others = [(c, float(pca.explained_variance_ratio[c - 1]), pca.loadings[columns, c - 1])
+              for c in overlay if c != component and c <= pca.n_components]
     return loadings_line_figure(
-        positions=axis.positions[axis_index], loadings=loadings[on_axis],
-        breaks_after=np.flatnonzero(np.diff(axis_index) != 1).tolist(),
-        component=component, explained_ratio=ratio, axis_label=axis.label,
-        reversed_axis=not axis.increasing,
-        left_out=[v for v in variables if v not in index], presentation=presentation,
+        positions=on_axis.positions, loadings=loadings[columns], breaks_after=on_axis.breaks_after,
+        component=component, explained_ratio=ratio, axis_label=on_axis.axis.label,
+        reversed_axis=not on_axis.axis.increasing, left_out=list(on_axis.left_out), presentation=presentation,
+        overlays=others, mean_spectrum=mean_spectrum(table, fitted, on_axis.axis),
+        shaded_ranges=fitted.prepared.preprocessor.recipe.ranges,
     )
 
 

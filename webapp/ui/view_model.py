@@ -26,7 +26,7 @@ from webapp.figures import (
     variance_table_rows,
     variance_table_tsv,
 )
-from webapp.state import ViewState
+from webapp.state import MAX_PC, ViewState
 from webapp.store.compute import fit_key
 from webapp.ui.resolution import DatasetNotFound, Resolved  # noqa: F401  (part of this module's interface)
 from webapp.ui.saved_views import (  # noqa: F401  (part of this module's interface)
@@ -50,6 +50,8 @@ from webapp.ui.scores_panel import (  # noqa: F401  (part of this module's inter
     scores_panel,
     sigma_ellipses,
 )
+from webapp.ui.spectra_panels import spectra_panel
+from webapp.ui.wide_variables import variables_off
 from webapp.ui.summary_panels import (  # noqa: F401  (part of this module's interface)
     advice_text,
     provenance,
@@ -63,6 +65,7 @@ from webapp.ui.variable_panels import (  # noqa: F401  (part of this module's in
 )
 
 MAX_TABLE_COMPONENTS = 20
+WIDE_VARIABLES = 60  # above this many numeric variables the page lists none of them one by one
 UNKNOWN_BATCH = "The new samples named in this link are not known here (their file may have been deleted); they are not shown."
 
 
@@ -74,6 +77,13 @@ class Controls:
     variables_in: list
     pc_options: list
     component_options: list
+    # Wide tables (more than WIDE_VARIABLES numeric variables) get no option per variable: the page
+    # chooses them by ranges and search instead (webapp.ui.wide_variables).
+    wide: bool = False
+    variables_total: int = 0
+    variables_used: int = 0
+    axis_span: tuple[float, float] | None = None  # (low, high) of the variable axis; None without one
+    axis_label: str = ""
 
 
 @dataclass(frozen=True, eq=False)
@@ -85,6 +95,7 @@ class View:
     errors: tuple[str, ...]
     recipe_words: tuple[str, ...]
     controls: Controls
+    steps: tuple[str, ...] = ()  # the preprocessing steps that act, in the order applied
     pc_x: int = 1
     pc_y: int = 2
     loading_pc: int = 1
@@ -108,6 +119,8 @@ class View:
     batch_problem = property(lambda self: self.panels.get("batch_problem", lambda: None))
     loadings_figure = property(lambda self: self.panels.get("loadings", go.Figure))
     circle_figure = property(lambda self: self.panels.get("circle", go.Figure))
+    # Spectra of the samples along the variable axis; None for a table without one.
+    spectra_figure = property(lambda self: self.panels.get("spectra", lambda: None))
 
 
 class LazyPanels:
@@ -133,7 +146,7 @@ def resolve(services, state: ViewState) -> Resolved:
     if record is None:
         raise DatasetNotFound(state.dataset)
     state, _ = _expanded(services, state)
-    return _resolve_table(services, record, services.compute.table(record), state, wait=True)
+    return _resolve_table(services, record, services.compute.table(record, state.rows_are), state, wait=True)
 
 
 def _resolve_table(services, record, table, state: ViewState, *, wait: bool) -> Resolved:
@@ -169,11 +182,13 @@ def with_exclusions(services, state: ViewState, labels) -> ViewState:
 
 
 def _expanded(services, state: ViewState) -> tuple[ViewState, tuple[str, ...]]:
-    """The state with its stored sample set spelled out in ``excluded`` (for the recipe and the page)."""
+    """The state with its stored sample and variable sets spelled out in ``excluded`` and ``variables_off``."""
     labels, notices = excluded_labels(services, state)
-    if state.excluded_set is None:
+    off, off_notices = variables_off(services, state)
+    if state.excluded_set is None and state.variables_off_set is None:
         return state, notices
-    return state.replace(excluded=labels, excluded_set=None), notices
+    return (state.replace(excluded=labels, excluded_set=None, variables_off=off, variables_off_set=None),
+            (*notices, *off_notices))
 
 
 def parallel_analysis_done(services, state: ViewState) -> bool:
@@ -190,7 +205,7 @@ def parallel_analysis_done(services, state: ViewState) -> bool:
         return True
     state, _ = _expanded(services, state)
     try:
-        recipe, _ = recipe_for(state, services.compute.table(record))
+        recipe, _ = recipe_for(state, services.compute.table(record, state.rows_are))
     except OrdinateError:
         return True
     if services.compute.is_complete(record, recipe):
@@ -236,6 +251,7 @@ def recipe_for(state: ViewState, table) -> tuple[Recipe, tuple[str, ...]]:
         ranges=ranges,
         row_correction=row_correction,
         savgol=savgol,
+        rows_are=state.rows_are,
     )
     return recipe, tuple(notices)
 
@@ -254,7 +270,7 @@ def build_view(services, state: ViewState, parse_notices=(), *, wait: bool = Fal
     state, exclusion_notices = _expanded(services, state)
     parse_notices = (*parse_notices, *exclusion_notices)
     try:
-        table = services.compute.table(record)
+        table = services.compute.table(record, state.rows_are)
     except OrdinateError as error:
         return _failed_view(state, record, None, parse_notices, error)
     summary = table_summary(record, table)
@@ -300,6 +316,7 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
         notices=tuple(notices),
         errors=(),
         recipe_words=tuple(resolved.recipe.describe()),
+        steps=tuple(resolved.recipe.steps()),
         controls=_controls(table, fitted, resolved.recipe),
         pc_x=pc_x,
         pc_y=pc_y,
@@ -333,9 +350,10 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
             "flagged": lambda: draw(keys["flagged"], lambda: flagged_samples(
                 fitted.prepared.sample_labels, diagnostics.t2, diagnostics.q, diagnostics.t2_limit,
                 diagnostics.q_limit)),
-            "contributions": lambda: contributions_panel(state, fitted, diagnostics, batch),
+            "contributions": lambda: contributions_panel(state, fitted, diagnostics, batch, table),
             "loadings": lambda: draw(keys["loadings"], lambda: loadings_panel(
-                table, fitted, loading_pc, state.present)),
+                table, fitted, loading_pc, state.present, state.loading_overlay)),
+            "spectra": lambda: draw(keys["spectra"], lambda: spectra_panel(state, table, fitted, groups)),
             "circle": lambda: draw(keys["circle"], lambda: circle_panel(fitted, pc_x, pc_y, state.present,
                                                                             state.arrows_shown)),
         }),
@@ -363,7 +381,8 @@ def _panel_keys(state: ViewState, resolved: Resolved, diagnostics, colour_column
         "diagnostics": ("diagnostics", fit[0], k, confidence, state.picked, colour_column, state.present, batch_id),
         "batch": ("batch", fit[0], k, confidence, batch_id),
         "flagged": ("flagged", fit[0], k, confidence),
-        "loadings": ("loadings", fit[0], loading_pc, state.present),
+        "loadings": ("loadings", fit[0], loading_pc, state.present, state.loading_overlay),
+        "spectra": ("spectra", fit[0], state.picked, colour_column, state.present),
         "circle": ("circle", fit[0], pc_x, pc_y, state.present, state.arrows_shown),
     }
 
@@ -385,20 +404,31 @@ def _failed_view(state, record, table, notices, error, summary=None) -> View:
 
 
 def _controls(table, fitted, recipe) -> Controls:
-    id_options = [{"label": "detected" + (f" ({table.id_column})" if table.id_column else " (row numbers)"),
-                   "value": "auto"}]
-    id_options += [{"label": c, "value": c} for c in table.frame.columns]
-    colour_options = [{"label": "detected group", "value": "auto"}, {"label": "no colouring", "value": "__none__"}]
-    colour_options += [{"label": c, "value": c} for c in table.frame.columns]
     label_column = (recipe.id_column if recipe else None) or table.id_column
     numeric = [c for c in table.numeric_columns if c != label_column]
     chosen = set(recipe.variables) if recipe and recipe.variables is not None else set(numeric)
-    pcs = fitted.pca.n_components if fitted else 0
+    pcs = min(fitted.pca.n_components if fitted else 0, MAX_PC)
+    wide = len(numeric) > WIDE_VARIABLES
+    axis = table_axis(table, label_column)
+    # A wide table offers its text columns (and numeric ones off the axis) as labels and groups, not every column.
+    columns = list(table.frame.columns) if not wide else [
+        c for c in table.frame.columns if c in table.text_columns or (axis is not None and c in axis.other)
+        or c == label_column][:WIDE_VARIABLES]
+    id_options = [{"label": "detected" + (f" ({table.id_column})" if table.id_column else " (row numbers)"),
+                   "value": "auto"}]
+    id_options += [{"label": c, "value": c} for c in columns]
+    colour_options = [{"label": "detected group", "value": "auto"}, {"label": "no colouring", "value": "__none__"}]
+    colour_options += [{"label": c, "value": c} for c in columns]
     return Controls(
         id_options=id_options,
         colour_options=colour_options,
-        variable_options=[{"label": c, "value": c} for c in numeric],
-        variables_in=[c for c in numeric if c in chosen],
+        variable_options=[] if wide else [{"label": c, "value": c} for c in numeric],
+        variables_in=[] if wide else [c for c in numeric if c in chosen],
+        wide=wide,
+        variables_total=len(numeric),
+        variables_used=fitted.pca.n_variables if fitted else 0,
+        axis_span=None if axis is None else axis.span(),
+        axis_label="" if axis is None else axis.label,
         pc_options=[{"label": f"PC{a}", "value": a} for a in range(1, pcs + 1)],
         component_options=[{"label": "recommended", "value": "auto"}]
         + [{"label": str(a), "value": a} for a in range(1, pcs + 1)],
