@@ -260,3 +260,31 @@ def _column_kinds(frame: pd.DataFrame) -> tuple[tuple[str, ...], tuple[str, ...]
     numeric = tuple(c for c in frame.columns
                     if pd.api.types.is_numeric_dtype(frame[c]) and not pd.api.types.is_bool_dtype(frame[c]))
     return numeric, tuple(c for c in frame.columns if c not in numeric)
+
+
+# --- fingerprint -----------------------------------------------------------------
+
+
+def fingerprint(source: Source) -> tuple[str, int]:
+    """SHA-256 of the parts' absolute paths, sizes and modification times, and their total size.
+
+    Cheap (one ``stat`` per part): it names the data for the result cache, so a
+    part that is rewritten, added or removed gives another fingerprint and a new fit.
+    """
+    import hashlib
+    import json
+
+    entries = []
+    for file in source.files:
+        try:
+            info = os.stat(file)
+        except FileNotFoundError:
+            raise OrdinateError(f"The part '{file}' is missing.") from None
+        entries.append([file, info.st_size, info.st_mtime_ns])
+    text = json.dumps(entries, separators=(",", ":"))
+    return hashlib.sha256(text.encode("utf-8")).hexdigest(), sum(entry[1] for entry in entries)
+
+
+def location_of(given: str) -> str:
+    """The absolute form of a data path or glob, as stored for a server-side dataset."""
+    return os.path.abspath(os.path.expanduser(str(given)))
