@@ -137,6 +137,7 @@ class Summary:
     sample_where: np.ndarray  # (m, 2): piece, row within the piece
     sample_values: np.ndarray
     excluded_found: frozenset[str] = field(default=frozenset())
+    sample_labels: np.ndarray | None = None  # label column values of the sampled rows (None: numbered)
 
 
 def summarise(frame: pd.DataFrame, index: int, path: str, plan: Plan) -> Summary:
@@ -145,6 +146,8 @@ def summarise(frame: pd.DataFrame, index: int, path: str, plan: Plan) -> Summary
     candidates = np.flatnonzero(keys < plan.sample_threshold)
     chosen = np.sort(candidates[np.argsort(keys[candidates], kind="stable")[: plan.sample_rows]])
     where = np.column_stack([np.full(chosen.size, index), prepared.rows[chosen]]).astype(np.int64)
+    labels = (_labels(frame, index, plan, prepared.rows[chosen]) if plan.id_column
+              else np.full(chosen.size, None, dtype=object))
     return Summary(
         moments=block_moments(prepared.values, plan.shift),
         read_rows={index: prepared.read_rows},
@@ -155,6 +158,7 @@ def summarise(frame: pd.DataFrame, index: int, path: str, plan: Plan) -> Summary
         sample_where=where,
         sample_values=prepared.values[chosen],
         excluded_found=prepared.excluded_found,
+        sample_labels=labels,
     )
 
 
@@ -171,6 +175,7 @@ def merge_summaries(a: Summary, b: Summary, sample_rows: int) -> Summary:
         sample_where=np.concatenate([a.sample_where, b.sample_where])[chosen],
         sample_values=np.concatenate([a.sample_values, b.sample_values])[chosen],
         excluded_found=a.excluded_found | b.excluded_found,
+        sample_labels=np.concatenate([a.sample_labels, b.sample_labels])[chosen],
     )
 
 
@@ -214,11 +219,21 @@ def score(frame: pd.DataFrame, index: int, path: str, plan: Plan, model: Model) 
     order = np.column_stack([np.full(t2.size, index), prepared.rows]).astype(np.int64)
     if model.keep_rows:
         return Scored(prepared.labels, scores, t2, q, t2_over, q_over, order)
-    ratio = np.maximum(t2 / model.t2_limit, q / model.q_limit)
-    top = np.flatnonzero(ratio > 1)
+    return top_flagged(frame, index, plan, model, prepared, t2, q)
+
+
+def top_flagged(frame: pd.DataFrame, index: int, plan: Plan, model: Model, prepared: Prepared,
+                t2: np.ndarray, q: np.ndarray) -> Scored:
+    """The piece's ``model.top`` rows furthest beyond a limit (by the larger ratio to its limit), and the counts."""
+    t2_over, q_over = int(np.sum(t2 > model.t2_limit)), int(np.sum(q > model.q_limit))
+    ratio = t2 / model.t2_limit
+    if model.q_limit > 0:
+        ratio = np.maximum(ratio, q / model.q_limit)
+    top = np.flatnonzero((t2 > model.t2_limit) | (q > model.q_limit))
     top = top[np.argsort(-ratio[top], kind="stable")[: model.top]]
     labels = prepared.labels[top] if prepared.labels is not None else _labels(frame, index, plan, prepared.rows[top])
-    return Scored(labels, None, t2[top], q[top], t2_over, q_over, order[top])
+    order = np.column_stack([np.full(top.size, index), prepared.rows[top]]).astype(np.int64)
+    return Scored(labels, None, t2[top], q[top], t2_over, q_over, order)
 
 
 def merge_scored(a: Scored, b: Scored, model: Model) -> Scored:
@@ -227,7 +242,9 @@ def merge_scored(a: Scored, b: Scored, model: Model) -> Scored:
     order = np.concatenate([a.order, b.order])
     scores = None if a.scores is None else np.concatenate([a.scores, b.scores])
     if not model.keep_rows:
-        ratio = np.maximum(t2 / model.t2_limit, q / model.q_limit)
+        ratio = t2 / model.t2_limit
+        if model.q_limit > 0:
+            ratio = np.maximum(ratio, q / model.q_limit)
         top = np.argsort(-ratio, kind="stable")[: model.top]
         labels, t2, q, order = labels[top], t2[top], q[top], order[top]
     return Scored(labels, scores, t2, q, a.t2_over + b.t2_over, a.q_over + b.q_over, order)
