@@ -28,7 +28,8 @@ import pytest
 
 from webapp.analysis.recipe import Recipe
 from webapp.distributed.cluster import dask_client
-from webapp.distributed.engine import analyse_long
+from webapp.distributed.density import score_density
+from webapp.distributed.engine import analyse_long, fit_long
 from webapp.distributed.sources import open_source
 
 RESULTS = Path(__file__).with_name("results.jsonl")
@@ -126,6 +127,24 @@ def test_fit_against_one_summing_pass_and_growth(files, tmp_path):
                 slope_s_per_million_rows=slope * 1e6, intercept_s=intercept,
                 linearity=float(np.corrcoef(n, fit)[0, 1]), load_average_before=load_before,
                 load_average_after=os.getloadavg()[0])
+
+        # The dashboard's path: the fit, then the density pass (2-D histograms, T²/Q, worst flagged rows).
+        source = open_source(str(files[0].parent))
+        start = time.perf_counter()
+        fit = fit_long(source, Recipe(), client)
+        fit_s = time.perf_counter() - start
+        start = time.perf_counter()
+        density = score_density(source, fit, client, "auto", 0.95)
+        density_s = time.perf_counter() - start
+        start = time.perf_counter()
+        _sum_pass(str(files[0].parent))
+        sum_s = time.perf_counter() - start
+        assert density.density.rows == FILES * ROWS_PER_FILE
+        assert density.density.t2_q.sum() + density.density.t2_q_outside == FILES * ROWS_PER_FILE
+        _record("dask dashboard fit and density pass", columns=COLUMNS, workers=workers, rows=FILES * ROWS_PER_FILE,
+                fit_s=fit_s, density_pass_s=density_s, sum_pass_s=sum_s, ratio_fit_to_sum=fit_s / sum_s,
+                ratio_density_to_sum=density_s / sum_s, fit_passes={k: round(v, 3) for k, v in fit.seconds.items()},
+                load_average=os.getloadavg()[0])
 
         client.restart()
         analyse_long(open_source(str(files[0].parent)), Recipe(), client)

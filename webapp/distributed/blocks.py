@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 
 from webapp.analysis.errors import OrdinateError
-from webapp.analysis.moments import Moments, block_moments, merge_moments
+from webapp.analysis.moments import Moments, block_moments_in_place, merge_moments
 from webapp.analysis.pca import PCAFit
 from webapp.analysis.pipeline import sample_statistics
 from webapp.analysis.transforms import TRANSFORM_FUNCTIONS, apply_transforms
@@ -78,9 +78,10 @@ def prepare_piece(frame: pd.DataFrame, index: int, path: str, plan: Plan, *, nee
     if not keep.all():
         values, labels = values[keep], labels[keep]
     _transform(values, plan, path, rows)
-    missing = np.isnan(values)
+    # One summing pass finds whether anything is missing (a NaN makes its column's sum NaN).
+    missing = np.isnan(values) if np.isnan(np.add.reduce(values, axis=0)).any() else None
     dropped, first, filled = 0, (), 0
-    if missing.any():
+    if missing is not None and missing.any():
         if plan.missing == "drop":
             bad = missing.any(axis=1)
             dropped = int(bad.sum())
@@ -148,15 +149,16 @@ def summarise(frame: pd.DataFrame, index: int, path: str, plan: Plan) -> Summary
     where = np.column_stack([np.full(chosen.size, index), prepared.rows[chosen]]).astype(np.int64)
     labels = (_labels(frame, index, plan, prepared.rows[chosen]) if plan.id_column
               else np.full(chosen.size, None, dtype=object))
+    sample = prepared.values[chosen]  # a copy, taken before the moments overwrite the piece
     return Summary(
-        moments=block_moments(prepared.values, plan.shift),
+        moments=block_moments_in_place(prepared.values, plan.shift),
         read_rows={index: prepared.read_rows},
         dropped=prepared.dropped,
         first_dropped=prepared.first_dropped,
         filled=prepared.filled,
         sample_keys=keys[chosen],
         sample_where=where,
-        sample_values=prepared.values[chosen],
+        sample_values=sample,
         excluded_found=prepared.excluded_found,
         sample_labels=labels,
     )
@@ -210,7 +212,7 @@ class Scored:
 
 def score(frame: pd.DataFrame, index: int, path: str, plan: Plan, model: Model) -> Scored:
     prepared = prepare_piece(frame, index, path, plan, need_labels=model.keep_rows)
-    X = prepared.values[:, model.kept]
+    X = prepared.values if model.kept.all() else prepared.values[:, model.kept]  # private: changed in place
     X -= model.centre
     X /= model.scale
     scores = X @ model.pca.loadings
@@ -287,10 +289,16 @@ def _numbers(frame: pd.DataFrame, variables, path: str) -> np.ndarray:
     A Parquet piece arrives as one consolidated pandas block, so this is one
     copy in column order (Fortran), whose column reductions are the fast ones.
     """
-    try:
-        return np.array(frame[list(variables)].to_numpy(dtype=np.float64, na_value=np.nan), order="F", copy=True)
-    except (TypeError, ValueError):
-        pass
+    take = getattr(frame, "take_numbers", None)  # a piece read by sources.read_piece
+    if take is not None:
+        values = take(variables)
+        if values is not None:
+            return values
+    else:
+        try:
+            return np.array(frame[list(variables)].to_numpy(dtype=np.float64, na_value=np.nan), order="F", copy=True)
+        except (TypeError, ValueError):
+            pass
     for variable in variables:  # find the column that holds text, to name it
         try:
             frame[variable].to_numpy(dtype=np.float64, na_value=np.nan)

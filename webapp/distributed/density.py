@@ -74,7 +74,7 @@ def grid_from_sample(sample_scores: np.ndarray, sample_t2: np.ndarray, sample_q:
 def density_piece(frame: pd.DataFrame, index: int, path: str, plan: blocks.Plan, model: blocks.Model,
                   grid: Grid) -> Density:
     prepared = blocks.prepare_piece(frame, index, path, plan, need_labels=False)
-    X = prepared.values[:, model.kept]
+    X = prepared.values if model.kept.all() else prepared.values[:, model.kept]  # private: changed in place
     X -= model.centre
     X /= model.scale
     scores = X @ model.pca.loadings

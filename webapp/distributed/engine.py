@@ -235,13 +235,11 @@ def run_pass(client, source: Source, step, merge, step_args: tuple, merge_args: 
     ``allowed-failures``, 3 by default); beyond that the pass fails here.
     """
     import dask
-    import dask.dataframe as dd
     from distributed import KilledWorker, as_completed
 
-    frames = dd.from_map(read_piece, list(source.pieces), columns=source.columns, meta=source.meta,
-                         enforce_metadata=False).to_delayed()
-    first = [dask.delayed(step)(frame, i, piece.path, *step_args)
-             for i, (frame, piece) in enumerate(zip(frames, source.pieces))]
+    # Reading and the step are one task: the piece never waits in a worker's memory as a result of its own.
+    first = [dask.delayed(_read_and_step, pure=False)(piece, source.columns, i, step, step_args)
+             for i, piece in enumerate(source.pieces)]
     level = first
     while len(level) > 1:
         merged = [dask.delayed(merge)(level[i], level[i + 1], *merge_args) for i in range(0, len(level) - 1, 2)]
@@ -274,6 +272,10 @@ def run_pass(client, source: Source, step, merge, step_args: tuple, merge_args: 
 
 
 _run = run_pass  # the name the engine's own passes use
+
+
+def _read_and_step(piece, columns, index: int, step, step_args: tuple):
+    return step(read_piece(piece, columns), index, piece.path, *step_args)
 
 
 def _sample_threshold(source: Source, sample_rows: int) -> float:
