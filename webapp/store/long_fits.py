@@ -64,6 +64,8 @@ class LongFits:
             return {"state": "idle"}
         if status["state"] == "running" and not self._running_anywhere(key):
             return {"state": "idle"}  # its process ended without finishing
+        if status["state"] == "failed" and time.time() - status.get("updated", 0) >= RETRY_SECONDS:
+            return {"state": "idle"}  # a page that asks now tries again
         return status
 
     # --- running -----------------------------------------------------------------
@@ -76,10 +78,8 @@ class LongFits:
         ``progress(phase, done, total)`` writes the state for the pages to read.
         """
         status = self.status(key)
-        if status["state"] in ("done", "running"):
+        if status["state"] != "idle":
             return status["state"]
-        if status["state"] == "failed" and time.time() - status.get("updated", 0) < RETRY_SECONDS:
-            return "failed"
         with self._lock:
             thread = self._threads.get(key)
             if thread is not None and thread.is_alive():
