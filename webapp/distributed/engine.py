@@ -181,6 +181,8 @@ def fit_long(source: Source, recipe: Recipe, client, *, seed: int = 0, sample_ro
     cross = moments.cross if recipe.centring == "mean" else moments.cross + n * np.outer(
         moments.column_means, moments.column_means)
     cross = cross[np.ix_(kept, kept)] / np.outer(scale[kept], scale[kept])
+    if progress is not None:
+        progress("advice", 0, 0)
     pca = fit_pca_from_cross_product(cross, n)
     spread = np.sqrt(np.maximum(np.diag(moments.cross)[kept], 0.0) / max(n - 1, 1)) / scale[kept]
 

@@ -145,7 +145,8 @@ def progress_text(status: dict) -> str | None:
     if status["state"] != "running":
         return None
     phase = {"moments": "reading the data (moments)", "means": "reading the data (means for filling)",
-             "scores": "scoring every sample (densities)"}.get(status.get("phase"), "starting the Dask cluster")
+             "scores": "scoring every sample (densities)",
+             "advice": "choosing the number of components (parallel analysis on a random sample)"}.get(status.get("phase"), "starting the Dask cluster")
     done, total = status.get("done", 0), status.get("total", 0)
     counted = f": {done} of {total} partitions done" if total else ""
     return f"Fitting on the Dask cluster, {phase}{counted}. The page updates when it is done."
