@@ -77,8 +77,7 @@ def density_piece(frame: pd.DataFrame, index: int, path: str, plan: blocks.Plan,
     X = prepared.values if model.kept.all() else prepared.values[:, model.kept]  # private: changed in place
     X -= model.centre
     X /= model.scale
-    scores = X @ model.pca.loadings
-    t2, q = sample_statistics(model.pca, X, scores, model.components)
+    scores, t2, q = _statistics(model, X, len(grid.score_edges))
     cells = [_cells(scores[:, a], edges) for a, edges in enumerate(grid.score_edges)]
     hist, outside = {}, {}
     for a, b in grid.pairs:
@@ -99,11 +98,48 @@ def merge_density(a: Density, b: Density, model: blocks.Model) -> Density:
     )
 
 
+def _statistics(model: blocks.Model, X: np.ndarray, drawn: int):
+    """Scores on the first max(K, drawn) components, T² and Q at K.
+
+    Only the components needed are computed (the in-memory engine's Q from the
+    discarded scores needs all of them, which costs a full p x p product): here
+    Q = ||x||² - ||t_K||², and the rows where that difference is below
+    ``Q_GUARD`` of ||x||² (where it could lose more than 6 digits) get the exact
+    residual (:func:`webapp.analysis.q_residual.q_residuals`).
+    """
+    from webapp.analysis.hotelling import hotelling_t2
+    from webapp.analysis.q_residual import q_residuals
+
+    pca, k = model.pca, model.components
+    m = min(pca.n_components, max(k, drawn))
+    scores = X @ pca.loadings[:, :m]
+    t2 = hotelling_t2(scores[:, :k], pca.eigenvalues[:k])
+    norms = np.einsum("ij,ij->i", X, X)
+    q = norms - np.einsum("ij,ij->i", scores[:, :k], scores[:, :k])
+    close = q < Q_GUARD * norms
+    if close.any():
+        q[close] = q_residuals(X[close], scores[close, :k], pca.loadings[:, :k])
+    return scores, t2, q
+
+
+Q_GUARD = 1e-6
+
+
 def _cells(values: np.ndarray, edges: np.ndarray) -> np.ndarray:
-    """The cell of each value as numpy.histogram2d counts it; -1 outside the edges."""
-    cell = np.searchsorted(edges, values, side="right") - 1
-    cell[values == edges[-1]] = len(edges) - 2  # the last cell is closed on the right
-    cell[(cell < 0) | (cell >= len(edges) - 1) | ~np.isfinite(values)] = -1
+    """The cell of each value as numpy.histogram2d counts it (searchsorted on the edges); -1 outside.
+
+    The edges are equally spaced, so the cell comes from one multiplication and
+    is then corrected against the edges themselves, which makes it exact.
+    """
+    bins = len(edges) - 1
+    finite = np.isfinite(values)
+    v = np.where(finite, values, edges[0])
+    cell = ((v - edges[0]) * (bins / (edges[-1] - edges[0]))).astype(np.intp)
+    np.clip(cell, 0, bins - 1, out=cell)
+    cell -= (v < edges[cell]).astype(np.intp)
+    np.clip(cell, 0, bins - 1, out=cell)
+    cell += ((v >= edges[cell + 1]) & (cell < bins - 1)).astype(np.intp)
+    cell[(values < edges[0]) | (values > edges[-1]) | ~finite] = -1  # the last cell is closed on the right
     return cell
 
 
