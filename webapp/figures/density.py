@@ -16,7 +16,7 @@ import plotly.graph_objects as go
 
 from webapp.figures.scores import ellipse_name
 from webapp.figures.text import count_text, escape_text, level_percent, template_literal
-from webapp.figures.theme import axis_style, new_figure, style_for
+from webapp.figures.theme import HALF_NOTE_WIDTH, axis_style, new_figure, style_for
 
 DENSITY_COLOURS = [[0.0, "#E3E8EE"], [0.5, "#7D8FA3"], [1.0, "#1F2A36"]]
 POINT_COLOUR = "#D55E00"  # Okabe-Ito vermilion
@@ -87,7 +87,7 @@ def density_diagnostics_figure(*, counts, t2_edges, q_edges, outside: int, rows:
              "a limit are drawn as points."]
     if outside:
         notes.append(f"{count_text(outside)} sample(s) lie beyond the drawn range.")
-    figure = new_figure(style, title="T² and Q (long data)", notes=notes,
+    figure = new_figure(style, title="T² and Q (long data)", notes=notes, note_width=HALF_NOTE_WIDTH,
                         xaxis=axis_style("Hotelling's T²", zero_line=False),
                         yaxis=axis_style("Q residual", zero_line=False))
     figure.add_trace(density_image(counts, t2_edges, q_edges, name="Sample density"))

@@ -27,7 +27,7 @@ import numpy as np
 from dash import ALL, Input, Output, State, ctx, html, no_update
 from dash.exceptions import PreventUpdate
 
-from webapp.analysis.ellipses import Ellipse, sigma_coverage
+from webapp.analysis.ellipses import component_ellipse
 from webapp.analysis.errors import OrdinateError
 from webapp.analysis.recipe import Recipe
 from webapp.figures import (
@@ -267,21 +267,6 @@ def _diagnostics(result, present: bool):
         flagged_labels=flagged.labels, t2_limit=result.limits[0], q_limit=result.limits[1],
         confidence=result.confidence, components=result.components, t2_over=flagged.t2_over, q_over=flagged.q_over,
         presentation=present)
-
-
-def component_ellipse(variance_x: float, variance_y: float, k: float, n_curve: int = 120) -> Ellipse:
-    """The k-sigma ellipse of the scores of two components: centred at 0, axes k·sqrt(eigenvalue).
-
-    Scores of different components are uncorrelated with variances equal to the
-    eigenvalues (common practice), so this is the ellipse of all rows, not of the sample.
-    """
-    phi = np.linspace(0.0, 2.0 * np.pi, n_curve + 1)
-    sx, sy = k * np.sqrt(variance_x), k * np.sqrt(variance_y)
-    x, y = sx * np.cos(phi), sy * np.sin(phi)
-    x[-1], y[-1] = x[0], y[0]
-    major, minor = max(sx, sy), min(sx, sy)
-    return Ellipse(center=(0.0, 0.0), semi_axes=(major, minor), angle=0.0 if sx >= sy else np.pi / 2, x=x, y=y,
-                   level=k, kind="sigma", expected_coverage=sigma_coverage(k), observed_fraction=None, n_points=0)
 
 
 def flagged_page(rows: list, page: int, t2_over: int, q_over: int) -> html.Div:
