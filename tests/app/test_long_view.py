@@ -133,3 +133,18 @@ def test_a_failed_fit_caches_nothing_and_says_why(services, long_dataset):
     assert services.compute.long_fits.result(plan.fit_key) is None
     view = long_view.build_long_view(services, state)
     assert view.complete and "Iterative imputation" in view.errors[0]
+
+
+def test_changed_parts_get_a_new_fit_and_a_notice(services, long_dataset, tmp_path):
+    import os
+    import time
+
+    record, _ = long_dataset
+    state = ViewState(dataset=record.token)
+    before = long_view._Plan(services, state)
+    assert before.notices == []
+    later = time.time() + 10
+    os.utime(tmp_path / "parts" / "part-0.parquet", (later, later))
+    after = long_view._Plan(services, state)
+    assert after.key != before.key and after.fit_key != before.fit_key
+    assert "changed since it was registered" in after.notices[0]
