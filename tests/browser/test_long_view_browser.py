@@ -61,4 +61,6 @@ def test_a_server_side_dataset_shows_progress_then_densities(dash_duo, tmp_path,
     dash_duo.driver.find_element("xpath", "//div[@id='flagged-list']//button[text()='Next']").click()
     second = _wait_for(lambda: (lambda t: "page 2 of" in t and t)(_text(dash_duo.driver, "#flagged-list")))
     assert "Samples 26–" in second and second != first_page
-    dash_duo.driver.save_screenshot(str(tmp_path / "long-view.png"))
+    dash_duo.driver.save_screenshot(str(tmp_path / "long-view-diagnostics.png"))
+    dash_duo.driver.execute_script("document.getElementById('scores-graph').scrollIntoView();")
+    dash_duo.driver.save_screenshot(str(tmp_path / "long-view-scores.png"))
