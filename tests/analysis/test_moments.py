@@ -77,3 +77,25 @@ def test_empty_blocks_change_nothing_and_mismatched_columns_are_refused():
         merge_moments(one, block_moments(X, X[0]))
     with pytest.raises(OrdinateError, match="no rows"):
         merge_all([])
+
+
+@pytest.mark.parametrize("shift_kind", ["near the mean", "far from the mean", "none"])
+def test_moments_in_place_match_the_two_pass_formula(shift_kind):
+    # Reference: the two-pass formula in extended precision (above). Offsets near 1e6 that vary in the
+    # third decimal, one constant column; "far" puts the shift 1e4 standard deviations away (the exact
+    # re-centring path), "none" leaves the offsets to the guard.
+    from webapp.analysis.moments import block_moments_in_place
+
+    rng = np.random.default_rng(5)
+    X = rng.standard_normal((3000, 6)) * np.array([1e-3, 1.0, 5.0, 0.1, 2.0, 1.0]) + 1e6
+    X[:, 5] = 7.0
+    shift = {"near the mean": X[:50].mean(axis=0), "far from the mean": X[0] + 10.0, "none": None}[shift_kind]
+    mean, cross = _reference(X)
+    moments = block_moments_in_place(X.copy(), shift)
+    assert moments.count == 3000
+    np.testing.assert_allclose(moments.column_means, np.asarray(mean, float), rtol=1e-14)
+    assert _relative(moments.cross, cross) < 1e-10
+    np.testing.assert_allclose(np.diag(moments.cross), np.diag(np.asarray(cross, float)), rtol=1e-8, atol=1e-12)
+    np.testing.assert_array_equal(moments.minimum, X.min(axis=0))
+    merged = merge_moments(block_moments_in_place(X[:1000].copy(), shift), block_moments_in_place(X[1000:].copy(), shift))
+    assert _relative(merged.cross, cross) < 1e-10

@@ -28,7 +28,8 @@ import pytest
 
 from webapp.analysis.recipe import Recipe
 from webapp.distributed.cluster import dask_client
-from webapp.distributed.engine import analyse_long
+from webapp.distributed.density import score_density
+from webapp.distributed.engine import analyse_long, fit_long
 from webapp.distributed.sources import open_source
 
 RESULTS = Path(__file__).with_name("results.jsonl")
@@ -127,6 +128,24 @@ def test_fit_against_one_summing_pass_and_growth(files, tmp_path):
                 linearity=float(np.corrcoef(n, fit)[0, 1]), load_average_before=load_before,
                 load_average_after=os.getloadavg()[0])
 
+        # The dashboard's path: the fit, then the density pass (2-D histograms, T²/Q, worst flagged rows).
+        source = open_source(str(files[0].parent))
+        start = time.perf_counter()
+        fit = fit_long(source, Recipe(), client)
+        fit_s = time.perf_counter() - start
+        start = time.perf_counter()
+        density = score_density(source, fit, client, "auto", 0.95)
+        density_s = time.perf_counter() - start
+        start = time.perf_counter()
+        _sum_pass(str(files[0].parent))
+        sum_s = time.perf_counter() - start
+        assert density.density.rows == FILES * ROWS_PER_FILE
+        assert density.density.t2_q.sum() + density.density.t2_q_outside == FILES * ROWS_PER_FILE
+        _record("dask dashboard fit and density pass", columns=COLUMNS, workers=workers, rows=FILES * ROWS_PER_FILE,
+                fit_s=fit_s, density_pass_s=density_s, sum_pass_s=sum_s, ratio_fit_to_sum=fit_s / sum_s,
+                ratio_density_to_sum=density_s / sum_s, fit_passes={k: round(v, 3) for k, v in fit.seconds.items()},
+                load_average=os.getloadavg()[0])
+
         client.restart()
         analyse_long(open_source(str(files[0].parent)), Recipe(), client)
         fit_peak = _peak_rss_mb(client)
@@ -135,3 +154,47 @@ def test_fit_against_one_summing_pass_and_growth(files, tmp_path):
         sum_peak = _peak_rss_mb(client)
         _record("dask peak memory per worker", columns=COLUMNS, workers=workers, rows=FILES * ROWS_PER_FILE,
                 fit_peak_rss_mb=fit_peak, sum_pass_peak_rss_mb=sum_peak)
+
+
+def test_where_the_time_goes_in_one_piece(tmp_path):
+    """Per-step times of one 250 000 x 100 piece in this process (one BLAS thread is what a worker has)."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from webapp.analysis.moments import block_moments_in_place
+    from webapp.distributed import blocks
+    from webapp.distributed.sources import read_piece
+
+    rng = np.random.default_rng(3)
+    names = [f"tag_{j:03d}" for j in range(COLUMNS)]
+    path = tmp_path / "piece.parquet"
+    with pq.ParquetWriter(path, pa.schema([(n, pa.float64()) for n in names]), compression="none") as writer:
+        for _ in range(2):
+            block = rng.standard_normal((ROW_GROUP, COLUMNS)) * 3 + 100
+            writer.write_table(pa.table({n: block[:, j] for j, n in enumerate(names)}))
+    source = open_source(path)
+    piece, columns = source.pieces[0], source.columns
+    plan = blocks.Plan(tuple(columns), ("none",) * COLUMNS, None, frozenset(), "drop", source.row_offsets(),
+                       shift=np.full(COLUMNS, 100.0), sample_threshold=0.002)
+
+    def best(step, repeats=5):
+        times = []
+        for _ in range(repeats):
+            start = time.perf_counter()
+            step()
+            times.append(time.perf_counter() - start)
+        return min(times)
+
+    values = read_piece(piece, columns).numbers
+    timings = {
+        "read_piece_s": best(lambda: read_piece(piece, columns)),
+        "reference_arrow_pandas_sum_s": best(lambda: pq.ParquetFile(path).read().to_pandas().to_numpy().sum(axis=0)),
+        "moments_s": best(lambda: block_moments_in_place(values.copy(order="F"), plan.shift)) - best(
+            lambda: values.copy(order="F")),
+        "syrk_s": best(lambda: values.T @ values),
+        "read_and_summarise_s": best(lambda: blocks.summarise(read_piece(piece, columns), 0, str(path), plan)),
+    }
+    timings["ratio_read_and_summarise_to_reference"] = (timings["read_and_summarise_s"]
+                                                        / timings["reference_arrow_pandas_sum_s"])
+    _record("dask one piece", columns=COLUMNS, rows=2 * ROW_GROUP, load_average=os.getloadavg()[0], **timings)
+    assert timings["read_and_summarise_s"] > 0

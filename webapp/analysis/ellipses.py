@@ -33,6 +33,7 @@ __all__ = [
     "sigma_ellipse",
     "try_sigma_ellipse",
     "hotelling_ellipse",
+    "component_ellipse",
 ]
 
 # A covariance whose smaller eigenvalue is below this fraction of the larger
@@ -286,3 +287,18 @@ def hotelling_ellipse(
         observed_fraction=observed,
         n_points=m,
     )
+
+
+def component_ellipse(variance_x: float, variance_y: float, k: float, n_curve: int = 120) -> Ellipse:
+    """The k-sigma ellipse of the scores of two components: centred at 0, axes k·sqrt(eigenvalue).
+
+    Scores of different components are uncorrelated with variances equal to the
+    eigenvalues (common practice), so this is the ellipse of all rows, not of the sample.
+    """
+    k = _check_positive_real(k, "number of standard deviations")
+    sx, sy = k * math.sqrt(variance_x), k * math.sqrt(variance_y)
+    major, minor = max(sx, sy), min(sx, sy)
+    angle = 0.0 if sx >= sy else math.pi / 2
+    x, y = _closed_curve((0.0, 0.0), major, minor, angle, n_curve)
+    return Ellipse(center=(0.0, 0.0), semi_axes=(major, minor), angle=angle, x=x, y=y, level=k, kind="sigma",
+                   expected_coverage=sigma_coverage(k), observed_fraction=None, n_points=0)

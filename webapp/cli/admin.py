@@ -12,7 +12,36 @@ from pathlib import Path
 
 from webapp.analysis.errors import OrdinateError
 
-__all__ = ["list_main", "delete_main"]
+__all__ = ["add_main", "list_main", "delete_main"]
+
+
+def add_main(data_dir: Path, path: str, *, name: str | None = None, engine: str = "dask",
+             scheduler: str | None = None) -> int:
+    """Register data already on the server (a Parquet file or directory, or a glob of CSV parts).
+
+    Nothing is copied: the record keeps the absolute path (or glob), the engine,
+    the scheduler, and a fingerprint of the parts (paths, sizes, modification
+    times) that keys the cached results. The parts are checked now (columns and
+    types agree), so a broken dataset is refused here rather than on the page.
+    """
+    from webapp.distributed.sources import fingerprint, location_of, open_source
+
+    if engine != "dask":
+        raise OrdinateError(f"Server-side datasets are read by the Dask engine; got --engine {engine}.")
+    location = location_of(path)
+    source = open_source(location)
+    digest, size = fingerprint(source)
+    services = _services(data_dir, create=True)
+    shown = name or Path(location.rstrip("/")).name or location
+    record = services.store.add_server_side(location, digest, size, name=shown, engine=engine,
+                                            scheduler=scheduler or "")
+    parts = f"{len(source.files)} part(s), {_size(size)}"
+    print(f"Registered '{record.display_name}' ({source.kind}, {parts}) at {location}; nothing was copied.")
+    print(f"Dataset code: {record.token}")
+    from webapp.web.manage import manage_link
+
+    print(f"View link: /?ds={record.token} on this server; manager link (keep it private): {manage_link(record)}")
+    return 0
 
 
 def list_main(data_dir: Path) -> int:
@@ -27,6 +56,9 @@ def list_main(data_dir: Path) -> int:
         views = len(services.store.views_for_dataset(record.token))
         name = record.display_name if record.display_name == record.filename else \
             f"{record.display_name} ({record.filename})"
+        if record.server_side:
+            where = f"server-side, {record.engine} engine" + (f", scheduler {record.scheduler}" if record.scheduler else "")
+            name = f"{record.display_name} [{where}: {record.location}]"
         print(f"{record.token:<26} {_utc(record.created):<17} {_size(record.size_bytes):>9} {views:>5}  {name}")
     return 0
 
@@ -43,6 +75,15 @@ def delete_main(data_dir: Path, token: str, *, confirmed: bool) -> int:
         raise OrdinateError(f"No dataset with the dataset code '{token}' in {data_dir}; "
                             "`ordinate datasets list` shows them.")
     views = services.store.views_for_dataset(token)
+    if record.server_side:
+        what = (f"server-side dataset '{record.display_name}' (registered {_utc(record.created)} UTC) and its "
+                f"{len(views)} saved view(s); its files at {record.location} stay where they are")
+        if not confirmed:
+            raise OrdinateError(f"This would delete the {what}; nothing was deleted. Add --yes to delete it.")
+        services.store.delete_dataset(token)
+        services.compute.forget(record.content_hash)
+        print(f"Deleted the {what}. Its links no longer open.")
+        return 0
     what = (f"dataset '{record.display_name}' ({record.filename}, {_size(record.size_bytes)}, uploaded "
             f"{_utc(record.created)} UTC) and its {len(views)} saved view(s)")
     if not confirmed:
@@ -54,13 +95,13 @@ def delete_main(data_dir: Path, token: str, *, confirmed: bool) -> int:
     return 0
 
 
-def _services(data_dir: Path):
+def _services(data_dir: Path, *, create: bool = False):
     from webapp.store.services import create_services
     from webapp.config import AppConfig
 
     data_dir = Path(data_dir)
     # Check first: opening the store would create an empty data directory at a mistyped path.
-    if not (data_dir / "index").is_dir():
+    if not create and not (data_dir / "index").is_dir():
         raise OrdinateError(f"'{data_dir}' is not an Ordinate data directory (it has no 'index' folder).")
     return create_services(AppConfig(data_dir=data_dir, demo_dataset=None))
 

@@ -155,8 +155,20 @@ def _add_report(commands) -> None:
 
 
 def _add_datasets(commands) -> None:
-    cmd = commands.add_parser("datasets", help="list or delete stored datasets (for administrators)")
+    cmd = commands.add_parser("datasets", help="add, list or delete stored datasets (for administrators)")
     actions = cmd.add_subparsers(dest="action", required=True)
+    add = actions.add_parser("add", help="register data already on the server or on shared storage (not copied)")
+    add.add_argument("path", help="a Parquet file, a directory of Parquet parts, or a quoted glob of CSV parts")
+    add.add_argument("--name", help="the name shown on the page (default: the file or directory name)")
+    add.add_argument("--engine", choices=("dask",), default="dask",
+                     help="the engine that reads the data (default: dask, the only one for server-side data)")
+    add.add_argument("--scheduler", metavar="ADDRESS",
+                     help="address of an existing Dask scheduler whose workers see the same path "
+                          "(default: a local cluster on this server)")
+    add.add_argument("--data-dir", type=Path, default=Path(".ordinate-data"),
+                     help="the server's data directory (default: .ordinate-data)")
+    add.set_defaults(run=lambda args: _admin().add_main(args.data_dir, args.path, name=args.name, engine=args.engine,
+                                                        scheduler=args.scheduler))
     listing = actions.add_parser("list", help="every stored dataset, oldest first")
     _add_data_dir(listing)
     listing.set_defaults(run=lambda args: _admin().list_main(args.data_dir))

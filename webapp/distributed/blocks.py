@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 
 from webapp.analysis.errors import OrdinateError
-from webapp.analysis.moments import Moments, block_moments, merge_moments
+from webapp.analysis.moments import Moments, block_moments_in_place, merge_moments
 from webapp.analysis.pca import PCAFit
 from webapp.analysis.pipeline import sample_statistics
 from webapp.analysis.transforms import TRANSFORM_FUNCTIONS, apply_transforms
@@ -78,9 +78,10 @@ def prepare_piece(frame: pd.DataFrame, index: int, path: str, plan: Plan, *, nee
     if not keep.all():
         values, labels = values[keep], labels[keep]
     _transform(values, plan, path, rows)
-    missing = np.isnan(values)
+    # One summing pass finds whether anything is missing (a NaN makes its column's sum NaN).
+    missing = np.isnan(values) if np.isnan(np.add.reduce(values, axis=0)).any() else None
     dropped, first, filled = 0, (), 0
-    if missing.any():
+    if missing is not None and missing.any():
         if plan.missing == "drop":
             bad = missing.any(axis=1)
             dropped = int(bad.sum())
@@ -137,6 +138,7 @@ class Summary:
     sample_where: np.ndarray  # (m, 2): piece, row within the piece
     sample_values: np.ndarray
     excluded_found: frozenset[str] = field(default=frozenset())
+    sample_labels: np.ndarray | None = None  # label column values of the sampled rows (None: numbered)
 
 
 def summarise(frame: pd.DataFrame, index: int, path: str, plan: Plan) -> Summary:
@@ -145,16 +147,20 @@ def summarise(frame: pd.DataFrame, index: int, path: str, plan: Plan) -> Summary
     candidates = np.flatnonzero(keys < plan.sample_threshold)
     chosen = np.sort(candidates[np.argsort(keys[candidates], kind="stable")[: plan.sample_rows]])
     where = np.column_stack([np.full(chosen.size, index), prepared.rows[chosen]]).astype(np.int64)
+    labels = (_labels(frame, index, plan, prepared.rows[chosen]) if plan.id_column
+              else np.full(chosen.size, None, dtype=object))
+    sample = prepared.values[chosen]  # a copy, taken before the moments overwrite the piece
     return Summary(
-        moments=block_moments(prepared.values, plan.shift),
+        moments=block_moments_in_place(prepared.values, plan.shift),
         read_rows={index: prepared.read_rows},
         dropped=prepared.dropped,
         first_dropped=prepared.first_dropped,
         filled=prepared.filled,
         sample_keys=keys[chosen],
         sample_where=where,
-        sample_values=prepared.values[chosen],
+        sample_values=sample,
         excluded_found=prepared.excluded_found,
+        sample_labels=labels,
     )
 
 
@@ -171,6 +177,7 @@ def merge_summaries(a: Summary, b: Summary, sample_rows: int) -> Summary:
         sample_where=np.concatenate([a.sample_where, b.sample_where])[chosen],
         sample_values=np.concatenate([a.sample_values, b.sample_values])[chosen],
         excluded_found=a.excluded_found | b.excluded_found,
+        sample_labels=np.concatenate([a.sample_labels, b.sample_labels])[chosen],
     )
 
 
@@ -205,7 +212,7 @@ class Scored:
 
 def score(frame: pd.DataFrame, index: int, path: str, plan: Plan, model: Model) -> Scored:
     prepared = prepare_piece(frame, index, path, plan, need_labels=model.keep_rows)
-    X = prepared.values[:, model.kept]
+    X = prepared.values if model.kept.all() else prepared.values[:, model.kept]  # private: changed in place
     X -= model.centre
     X /= model.scale
     scores = X @ model.pca.loadings
@@ -214,11 +221,21 @@ def score(frame: pd.DataFrame, index: int, path: str, plan: Plan, model: Model) 
     order = np.column_stack([np.full(t2.size, index), prepared.rows]).astype(np.int64)
     if model.keep_rows:
         return Scored(prepared.labels, scores, t2, q, t2_over, q_over, order)
-    ratio = np.maximum(t2 / model.t2_limit, q / model.q_limit)
-    top = np.flatnonzero(ratio > 1)
+    return top_flagged(frame, index, plan, model, prepared, t2, q)
+
+
+def top_flagged(frame: pd.DataFrame, index: int, plan: Plan, model: Model, prepared: Prepared,
+                t2: np.ndarray, q: np.ndarray) -> Scored:
+    """The piece's ``model.top`` rows furthest beyond a limit (by the larger ratio to its limit), and the counts."""
+    t2_over, q_over = int(np.sum(t2 > model.t2_limit)), int(np.sum(q > model.q_limit))
+    ratio = t2 / model.t2_limit
+    if model.q_limit > 0:
+        ratio = np.maximum(ratio, q / model.q_limit)
+    top = np.flatnonzero((t2 > model.t2_limit) | (q > model.q_limit))
     top = top[np.argsort(-ratio[top], kind="stable")[: model.top]]
     labels = prepared.labels[top] if prepared.labels is not None else _labels(frame, index, plan, prepared.rows[top])
-    return Scored(labels, None, t2[top], q[top], t2_over, q_over, order[top])
+    order = np.column_stack([np.full(top.size, index), prepared.rows[top]]).astype(np.int64)
+    return Scored(labels, None, t2[top], q[top], t2_over, q_over, order)
 
 
 def merge_scored(a: Scored, b: Scored, model: Model) -> Scored:
@@ -227,7 +244,9 @@ def merge_scored(a: Scored, b: Scored, model: Model) -> Scored:
     order = np.concatenate([a.order, b.order])
     scores = None if a.scores is None else np.concatenate([a.scores, b.scores])
     if not model.keep_rows:
-        ratio = np.maximum(t2 / model.t2_limit, q / model.q_limit)
+        ratio = t2 / model.t2_limit
+        if model.q_limit > 0:
+            ratio = np.maximum(ratio, q / model.q_limit)
         top = np.argsort(-ratio, kind="stable")[: model.top]
         labels, t2, q, order = labels[top], t2[top], q[top], order[top]
     return Scored(labels, scores, t2, q, a.t2_over + b.t2_over, a.q_over + b.q_over, order)
@@ -270,10 +289,16 @@ def _numbers(frame: pd.DataFrame, variables, path: str) -> np.ndarray:
     A Parquet piece arrives as one consolidated pandas block, so this is one
     copy in column order (Fortran), whose column reductions are the fast ones.
     """
-    try:
-        return np.array(frame[list(variables)].to_numpy(dtype=np.float64, na_value=np.nan), order="F", copy=True)
-    except (TypeError, ValueError):
-        pass
+    take = getattr(frame, "take_numbers", None)  # a piece read by sources.read_piece
+    if take is not None:
+        values = take(variables)
+        if values is not None:
+            return values
+    else:
+        try:
+            return np.array(frame[list(variables)].to_numpy(dtype=np.float64, na_value=np.nan), order="F", copy=True)
+        except (TypeError, ValueError):
+            pass
     for variable in variables:  # find the column that holds text, to name it
         try:
             frame[variable].to_numpy(dtype=np.float64, na_value=np.nan)

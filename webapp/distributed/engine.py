@@ -73,16 +73,69 @@ def source_id_column(source: Source, id_column: str | None) -> str | None:
     return find_id_column(source.head, source.numeric_columns, source.text_columns)
 
 
+@dataclass(frozen=True, eq=False)
+class LongFit:
+    """The model of a long-data fit (passes 1 and 2 and the eigendecomposition), before any scoring."""
+
+    recipe: Recipe
+    preprocessor: Preprocessor  # the variables kept, their transforms, centre and scale
+    pca: PCAFit
+    advice: ComponentAdvice
+    plan: blocks.Plan  # with the rows before each piece
+    kept: np.ndarray  # mask over the chosen variables (zero-variance ones left out)
+    sample: np.ndarray  # the uniform random sample of rows, preprocessed, in file order
+    sample_keys: np.ndarray  # their random keys (the smallest m keys are a uniform sample of m rows)
+    sample_labels: np.ndarray
+    spread: np.ndarray  # standard deviation of each kept variable after preprocessing (ddof = 1)
+    pieces: int
+    files: int
+    warnings: tuple[str, ...]
+    seconds: dict
+
+    @property
+    def n_samples(self) -> int:
+        return self.pca.n_samples
+
+
 def analyse_long(source: Source, recipe: Recipe, client, *, components="auto", confidence: float = 0.95,
-                 seed: int = 0, sample_rows: int = SAMPLE_ROWS, per_sample_limit: int = PER_SAMPLE_LIMIT) -> LongAnalysis:
-    """Fit ``recipe`` to the rows of ``source`` on the cluster of ``client``."""
+                 seed: int = 0, sample_rows: int = SAMPLE_ROWS, per_sample_limit: int = PER_SAMPLE_LIMIT,
+                 progress=None) -> LongAnalysis:
+    """Fit ``recipe`` to the rows of ``source`` on the cluster of ``client``, then score every row."""
+    if not 0 < confidence < 1:
+        raise OrdinateError(f"The confidence level must be between 0 and 1 (for example 0.95); got {confidence}.")
+    fit = fit_long(source, recipe, client, seed=seed, sample_rows=sample_rows, progress=progress)
+    clock = _Clock()
+    k = resolve_components(SimpleNamespace(pca=fit.pca, advice=fit.advice), components)
+    limits = control_limits(fit.pca, k, confidence)
+    pre = fit.preprocessor
+    model = blocks.Model(fit.kept, pre.centre, pre.scale, fit.pca, k, limits[0], limits[1],
+                         keep_rows=fit.n_samples <= per_sample_limit)
+    scored = run_pass(client, source, blocks.score, blocks.merge_scored, (fit.plan, model), (model,),
+                      progress=_phase(progress, "scores"))
+    clock.lap("scores")
+    order = np.lexsort((scored.order[:, 1], scored.order[:, 0]))
+    scored = blocks.Scored(scored.labels[order], None if scored.scores is None else scored.scores[order],
+                           scored.t2[order], scored.q[order], scored.t2_over, scored.q_over, scored.order[order])
+    if model.keep_rows and len(set(scored.labels.tolist())) != scored.labels.size:
+        raise OrdinateError(
+            f"The column '{fit.plan.id_column}' cannot label samples: some labels repeat or are blank. "
+            "Choose a column whose values are all different."
+        )
+    return LongAnalysis(recipe, pre, fit.pca, fit.advice, k, float(confidence), limits, scored, model.keep_rows,
+                        fit.sample.shape[0], fit.pieces, fit.files, fit.warnings, {**fit.seconds, **clock.laps})
+
+
+def fit_long(source: Source, recipe: Recipe, client, *, seed: int = 0, sample_rows: int = SAMPLE_ROWS,
+             progress=None) -> LongFit:
+    """The passes that fit the model (means when filling, moments), then the eigendecomposition and advice.
+
+    ``progress(phase, done, total)``, when given, is called as pieces finish.
+    """
     if recipe.missing == "iterative":
         raise OrdinateError(
             "Iterative imputation is not available for long data (it needs every row in memory at once). "
             "Choose mean filling or leaving samples out, or analyse a file that fits in memory."
         )
-    if not 0 < confidence < 1:
-        raise OrdinateError(f"The confidence level must be between 0 and 1 (for example 0.95); got {confidence}.")
     clock = _Clock()
     id_column = source_id_column(source, recipe.id_column)
     variables = resolve_variables(source, recipe, id_column)
@@ -103,9 +156,10 @@ def analyse_long(source: Source, recipe: Recipe, client, *, components="auto", c
     warnings: list[str] = []
     clock.lap("set_up")
     if recipe.missing == "mean":
-        plan = _replace(plan, fill=_observed_means(source, client, plan))
+        plan = _replace(plan, fill=_observed_means(source, client, plan, _phase(progress, "means")))
         clock.lap("means")
-    summary = _run(client, source, blocks.summarise, blocks.merge_summaries, (plan,), (plan.sample_rows,))
+    summary = run_pass(client, source, blocks.summarise, blocks.merge_summaries, (plan,), (plan.sample_rows,),
+                       progress=_phase(progress, "moments"))
     offsets = np.concatenate([[0], np.cumsum([summary.read_rows[i] for i in range(len(source.pieces))])[:-1]])
     plan = _replace(plan, row_offsets=offsets.astype(np.int64))
     clock.lap("moments")
@@ -127,32 +181,35 @@ def analyse_long(source: Source, recipe: Recipe, client, *, components="auto", c
     cross = moments.cross if recipe.centring == "mean" else moments.cross + n * np.outer(
         moments.column_means, moments.column_means)
     cross = cross[np.ix_(kept, kept)] / np.outer(scale[kept], scale[kept])
+    if progress is not None:
+        progress("advice", 0, 0)
     pca = fit_pca_from_cross_product(cross, n)
+    spread = np.sqrt(np.maximum(np.diag(moments.cross)[kept], 0.0) / max(n - 1, 1)) / scale[kept]
 
     centre, scale = centre[kept], scale[kept]
     order = np.lexsort((summary.sample_where[:, 1], summary.sample_where[:, 0]))
     sample = (summary.sample_values[order][:, kept] - centre) / scale
     advice = sample_advice(pca, sample, seed=seed,
                            fallback=advise_components(pca.eigenvalues, pca.total_variance, pca.n_variables))
-    k = resolve_components(SimpleNamespace(pca=pca, advice=advice), components)
-    limits = control_limits(pca, k, confidence)
     clock.lap("eigendecomposition_and_advice")
-    model = blocks.Model(kept, centre, scale, pca, k, limits[0], limits[1], keep_rows=n <= per_sample_limit)
-    scored = _run(client, source, blocks.score, blocks.merge_scored, (plan, model), (model,))
-    clock.lap("scores")
-    order = np.lexsort((scored.order[:, 1], scored.order[:, 0]))
-    scored = blocks.Scored(scored.labels[order], None if scored.scores is None else scored.scores[order],
-                           scored.t2[order], scored.q[order], scored.t2_over, scored.q_over, scored.order[order])
-    if model.keep_rows and len(set(scored.labels.tolist())) != scored.labels.size:
-        raise OrdinateError(
-            f"The column '{id_column}' cannot label samples: some labels repeat or are blank. "
-            "Choose a column whose values are all different."
-        )
     kept_variables = tuple(v for v, z in zip(variables, zero) if not z)
     preprocessor = Preprocessor(kept_variables, tuple(t for t, z in zip(plan.transforms, zero) if not z),
                                 centre, scale, recipe)
-    return LongAnalysis(recipe, preprocessor, pca, advice, k, float(confidence), limits, scored, model.keep_rows,
-                        sample.shape[0], len(source.pieces), len(source.files), tuple(warnings), clock.laps)
+    labels = _sample_labels(summary, plan)[order]
+    return LongFit(recipe, preprocessor, pca, advice, plan, kept, sample, summary.sample_keys[order], labels,
+                   spread, len(source.pieces), len(source.files), tuple(warnings), clock.laps)
+
+
+def _sample_labels(summary: blocks.Summary, plan: blocks.Plan) -> np.ndarray:
+    """Labels of the sampled rows: their label column's values, else ``row N`` over the whole file order."""
+    labels = np.empty(summary.sample_where.shape[0], dtype=object)
+    for i, ((piece, row), label) in enumerate(zip(summary.sample_where, summary.sample_labels)):
+        labels[i] = label if label is not None else f"row {int(plan.row_offsets[piece]) + int(row) + 1}"
+    return labels
+
+
+def _phase(progress, name: str):
+    return None if progress is None else (lambda done, total: progress(name, done, total))
 
 
 class _Clock:
@@ -172,21 +229,39 @@ class _Clock:
 # --- passes ----------------------------------------------------------------------
 
 
-def _run(client, source: Source, step, merge, step_args: tuple, merge_args: tuple):
-    """One pass: ``step`` on every piece, results merged pairwise; errors become OrdinateError."""
-    import dask
-    import dask.dataframe as dd
-    from distributed import KilledWorker
+def run_pass(client, source: Source, step, merge, step_args: tuple, merge_args: tuple, *, progress=None):
+    """One pass: ``step`` on every piece, results merged pairwise; errors become OrdinateError.
 
-    frames = dd.from_map(read_piece, list(source.pieces), columns=source.columns, meta=source.meta,
-                         enforce_metadata=False).to_delayed()
-    level = [dask.delayed(step)(frame, i, piece.path, *step_args)
-             for i, (frame, piece) in enumerate(zip(frames, source.pieces))]
+    ``progress(done, total)`` is called as the pieces finish (from this thread).
+    A worker that dies is replaced and its tasks rerun by Dask (up to its
+    ``allowed-failures``, 3 by default); beyond that the pass fails here.
+    """
+    import dask
+    from distributed import KilledWorker, as_completed
+
+    # Reading and the step are one task: the piece never waits in a worker's memory as a result of its own.
+    first = [dask.delayed(_read_and_step, pure=False)(piece, source.columns, i, step, step_args)
+             for i, piece in enumerate(source.pieces)]
+    level = first
     while len(level) > 1:
         merged = [dask.delayed(merge)(level[i], level[i + 1], *merge_args) for i in range(0, len(level) - 1, 2)]
         level = merged + ([level[-1]] if len(level) % 2 else [])
     try:
-        return client.compute(level[0]).result()
+        if progress is None:
+            return client.compute(level[0]).result()
+        # One graph: the pieces' futures share their keys with the merge tree's inputs.
+        futures = client.compute([*first, level[0]] if len(first) > 1 else [level[0]])
+        pieces, top = futures[:-1] or futures, futures[-1]
+        done = 0
+        progress(0, len(first))
+        for future in as_completed(pieces):
+            if future.status == "error":
+                future.result()  # raises the piece's error
+            done += 1
+            if future is not top:
+                future.release()
+            progress(done, len(first))
+        return top.result()
     except OrdinateError:
         raise
     except KilledWorker as error:
@@ -196,6 +271,13 @@ def _run(client, source: Source, step, merge, step_args: tuple, merge_args: tupl
         ) from None
     except (OSError, MemoryError) as error:
         raise OrdinateError(f"The fit failed on the cluster ({error}).") from None
+
+
+_run = run_pass  # the name the engine's own passes use
+
+
+def _read_and_step(piece, columns, index: int, step, step_args: tuple):
+    return step(read_piece(piece, columns), index, piece.path, *step_args)
 
 
 def _sample_threshold(source: Source, sample_rows: int) -> float:
@@ -230,8 +312,8 @@ def _merge_rows(a: dict, b: dict) -> dict:
     return {**a, **b}
 
 
-def _observed_means(source: Source, client, plan: blocks.Plan) -> np.ndarray:
-    counts, sums = _run(client, source, blocks.observed_sums, blocks.add_sums, (plan,), ())
+def _observed_means(source: Source, client, plan: blocks.Plan, progress=None) -> np.ndarray:
+    counts, sums = _run(client, source, blocks.observed_sums, blocks.add_sums, (plan,), (), progress=progress)
     empty = [v for v, c in zip(plan.variables, counts) if c == 0]
     if empty:
         raise OrdinateError(

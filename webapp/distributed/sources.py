@@ -83,27 +83,101 @@ def open_source(path: str | os.PathLike) -> Source:
     return _parquet_source(given, files) if kind == "parquet" else _csv_source(given, files)
 
 
-def read_piece(piece: Piece, columns: tuple[str, ...]) -> pd.DataFrame:
-    """The rows of one piece as a data frame with ``columns`` (checked)."""
+class PieceFrame:
+    """The rows of one piece: its numeric columns as one float64 matrix in column order, the rest as a frame.
+
+    Parquet pieces are read straight from Arrow into the matrix (one copy, no
+    pandas block in between); ``frame[name]`` gives any column as a pandas
+    Series (for the label column). :meth:`take_numbers` hands the matrix over
+    without a copy when all its columns are asked for, in order (the common
+    case); a piece is read by the task that uses it, so nobody else sees it.
+    """
+
+    def __init__(self, numbers: np.ndarray, numeric: tuple[str, ...], others: pd.DataFrame):
+        self.numbers = numbers
+        self.numeric = tuple(numeric)
+        self.others = others
+        self._handed_over = False
+
+    def __len__(self) -> int:
+        return self.numbers.shape[0]
+
+    @property
+    def columns(self) -> tuple[str, ...]:
+        return (*self.numeric, *self.others.columns)
+
+    def __getitem__(self, name: str) -> pd.Series:
+        if name in self.others.columns:
+            return self.others[name]
+        return pd.Series(self.numbers[:, self.numeric.index(name)], name=name)
+
+    def take_numbers(self, variables) -> np.ndarray | None:
+        """The ``variables`` as a private float64 matrix in column order; None if one of them is not numeric here."""
+        where = {name: j for j, name in enumerate(self.numeric)}
+        if any(v not in where for v in variables):
+            return None
+        columns = [where[v] for v in variables]
+        if columns == list(range(len(self.numeric))) and not self._handed_over:
+            self._handed_over = True
+            return self.numbers
+        out = np.empty((len(self), len(columns)), order="F")
+        for k, j in enumerate(columns):
+            out[:, k] = self.numbers[:, j]
+        return out
+
+
+def read_piece(piece: Piece, columns: tuple[str, ...]) -> PieceFrame:
+    """The rows of one piece with ``columns`` (checked)."""
     try:
         if piece.kind == "parquet":
             import pyarrow.parquet as pq
 
-            frame = pq.ParquetFile(piece.path).read_row_groups(list(piece.row_groups)).to_pandas()
+            frame = _arrow_piece(pq.ParquetFile(piece.path).read_row_groups(list(piece.row_groups)))
         else:
             from webapp.analysis.ingest import read_table
 
-            frame = read_table(piece.path, max_bytes=MAX_CSV_PART_BYTES).frame
+            frame = _pandas_piece(read_table(piece.path, max_bytes=MAX_CSV_PART_BYTES).frame)
     except OrdinateError as error:
         raise OrdinateError(f"The part '{piece.path}' cannot be read: {error}") from None
     except FileNotFoundError:
         raise OrdinateError(f"The part '{piece.path}' is missing (it was there when the fit started).") from None
     except Exception as error:  # pyarrow and OS errors: name the file, never a traceback
         raise OrdinateError(f"The part '{piece.path}' cannot be read ({error}).") from None
-    missing = [c for c in columns if c not in frame.columns]
+    present = set(frame.columns)
+    missing = [c for c in columns if c not in present]
     if missing:
         raise OrdinateError(f"The part '{piece.path}' lacks the column '{missing[0]}' that the other parts have.")
     return frame
+
+
+def _arrow_piece(table) -> PieceFrame:
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    import pyarrow.types as t
+
+    numeric = [f.name for f in table.schema
+               if (t.is_integer(f.type) or t.is_floating(f.type) or t.is_decimal(f.type))]
+    numbers = np.empty((table.num_rows, len(numeric)), order="F")
+    for j, name in enumerate(numeric):
+        column = table.column(name)
+        if column.type != pa.float64():
+            column = pc.cast(column, pa.float64())
+        start = 0
+        for chunk in column.chunks:  # chunk by chunk: one copy, straight into the matrix
+            stop = start + len(chunk)
+            numbers[start:stop, j] = chunk.to_numpy(zero_copy_only=False)
+            start = stop
+    others = table.select([name for name in table.column_names if name not in set(numeric)]).to_pandas()
+    return PieceFrame(numbers, tuple(numeric), others)
+
+
+def _pandas_piece(frame: pd.DataFrame) -> PieceFrame:
+    numeric = [c for c in frame.columns
+               if pd.api.types.is_numeric_dtype(frame[c]) and not pd.api.types.is_bool_dtype(frame[c])]
+    numbers = np.empty((len(frame), len(numeric)), order="F")
+    for j, name in enumerate(numeric):
+        numbers[:, j] = frame[name].to_numpy(dtype=np.float64, na_value=np.nan)
+    return PieceFrame(numbers, tuple(numeric), frame[[c for c in frame.columns if c not in set(numeric)]])
 
 
 # --- finding the parts ---------------------------------------------------------
@@ -260,3 +334,31 @@ def _column_kinds(frame: pd.DataFrame) -> tuple[tuple[str, ...], tuple[str, ...]
     numeric = tuple(c for c in frame.columns
                     if pd.api.types.is_numeric_dtype(frame[c]) and not pd.api.types.is_bool_dtype(frame[c]))
     return numeric, tuple(c for c in frame.columns if c not in numeric)
+
+
+# --- fingerprint -----------------------------------------------------------------
+
+
+def fingerprint(source: Source) -> tuple[str, int]:
+    """SHA-256 of the parts' absolute paths, sizes and modification times, and their total size.
+
+    Cheap (one ``stat`` per part): it names the data for the result cache, so a
+    part that is rewritten, added or removed gives another fingerprint and a new fit.
+    """
+    import hashlib
+    import json
+
+    entries = []
+    for file in source.files:
+        try:
+            info = os.stat(file)
+        except FileNotFoundError:
+            raise OrdinateError(f"The part '{file}' is missing.") from None
+        entries.append([file, info.st_size, info.st_mtime_ns])
+    text = json.dumps(entries, separators=(",", ":"))
+    return hashlib.sha256(text.encode("utf-8")).hexdigest(), sum(entry[1] for entry in entries)
+
+
+def location_of(given: str) -> str:
+    """The absolute form of a data path or glob, as stored for a server-side dataset."""
+    return os.path.abspath(os.path.expanduser(str(given)))

@@ -46,6 +46,7 @@ from webapp.analysis.pipeline import (
 )
 from webapp.analysis.recipe import Recipe
 from webapp.store.file_lock import FileLock
+from webapp.store.long_fits import LongFits
 from webapp.store.storage import DataStore, DatasetRecord
 
 DEFAULT_CACHE_BYTES = 8 * 2**30
@@ -70,11 +71,16 @@ class ComputeLayer:
         self._drawings: OrderedDict[tuple, object] = OrderedDict()
         self._completing: dict[str, threading.Thread] = {}
         self._failed: set[str] = set()  # complete fits that failed in this process: not retried
+        self.long_fits = LongFits(self)  # fits of server-side datasets (webapp.store.long_fits)
 
     # --- public --------------------------------------------------------------
 
     def table(self, record: DatasetRecord, rows_are: str = "samples") -> Table:
         """The parsed file; ``rows_are="variables"``: read with one variable per row (each column a sample)."""
+        if record.server_side:
+            raise OrdinateError("This dataset stays on the server and is read by the Dask engine part by part, so "
+                                "per-sample tables and downloads are not available for it; use `ordinate analyze "
+                                "PATH --engine dask` on the server for the complete report.")
         if rows_are == "variables":
             return self._cached(f"table-transposed/{ENGINE_VERSION}/{record.content_hash}",
                                 lambda: transpose_table(self.table(record), f"'{record.filename}'"), "parses")

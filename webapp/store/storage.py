@@ -53,10 +53,20 @@ class DatasetRecord:
     created: float
     title: str = ""
     manage_key: str = ""  # second secret: only its holder may rename or delete
+    # Server-side data (registered by an administrator, never copied): where the parts are,
+    # the engine that reads them and the Dask scheduler to use ("" = a local cluster).
+    # For these, ``content_hash`` fingerprints the parts' paths, sizes and times at registration.
+    location: str = ""
+    engine: str = ""
+    scheduler: str = ""
 
     @property
     def display_name(self) -> str:
         return self.title or self.filename
+
+    @property
+    def server_side(self) -> bool:
+        return bool(self.location)
 
 
 @dataclass(frozen=True)
@@ -127,6 +137,17 @@ class DataStore:
         with self.index.transact():
             self._place_blob(temp_path, content_hash)
             return self._register(content_hash, filename, size, title)
+
+    def add_server_side(self, location: str, fingerprint: str, size: int, *, name: str, engine: str = "dask",
+                        scheduler: str = "") -> DatasetRecord:
+        """Register data that stay where they are (nothing is copied); ``fingerprint`` names their parts."""
+        if not _HASH_PATTERN.match(fingerprint):
+            raise ValueError("not a fingerprint")
+        record = DatasetRecord(new_token(), fingerprint, _clean_filename(name), int(size), time.time(),
+                               _clean_text(name, 200), new_token(), location=str(location), engine=engine,
+                               scheduler=_clean_text(scheduler, 300))
+        self.index.set(("dataset", record.token), asdict(record))
+        return record
 
     def _place_blob(self, temp_path: str, content_hash: str) -> None:
         # Called inside an index transaction, as is the removal of a blob nobody uses:
@@ -234,6 +255,8 @@ class DataStore:
                 self.index.delete(("sample-set", set_id))
             self.index.delete(("sets-of", dataset_token))
             self.index.delete(("dataset", dataset_token))
+            if record.server_side:
+                return True  # the administrator's files are never touched
             users = self.index.get(("blob-users", record.content_hash), 1) - 1
             if users > 0:
                 self.index.set(("blob-users", record.content_hash), users)

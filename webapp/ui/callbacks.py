@@ -24,6 +24,7 @@ from webapp.analysis.errors import OrdinateError
 from webapp.figures.message import message_figure
 from webapp.state import NO_COLOUR, ViewState, parse_query, to_query
 from webapp.ui import layout as L
+from webapp.ui import long_view
 from webapp.ui import view_model as vm
 from webapp.ui.picking import register_picking
 from webapp.ui.components import (
@@ -159,7 +160,7 @@ def _parallel_analysis_done(services, search) -> bool:
     state, _ = parse_query(search)
     shown, _slides, _notices = vm.effective_state(services, state)
     try:
-        return vm.parallel_analysis_done(services, shown)
+        return (long_view.long_done if long_view.is_long(services, shown) else vm.parallel_analysis_done)(services, shown)
     except Exception:  # the view itself reports problems; stop asking
         log.exception("Checking parallel analysis for %s failed", search)
         return True
@@ -174,7 +175,8 @@ def _draw(services, search, *, first: bool) -> tuple[list, list, bool]:
     state, notices = parse_query(search)
     shown, _slides, slide_notices = vm.effective_state(services, state)
     try:
-        view = vm.build_view(services, shown, notices + slide_notices)
+        build = long_view.build_long_view if long_view.is_long(services, shown) else vm.build_view
+        view = build(services, shown, notices + slide_notices)
         outputs = _first_outputs(view) if first else _rest_outputs(view)
     except vm.DatasetNotFound:
         outputs = _not_found_outputs(notices, start_page=state.dataset is None)
@@ -319,7 +321,7 @@ def _rest_outputs(view: "vm.View") -> list:
     return [
         _drawn(lambda: view.variance_figure, figure=True),
         _drawn(lambda: view.diagnostics_figure, figure=True),
-        _drawn(lambda: flagged_table(view.flagged), figure=False),
+        _drawn(lambda: view.panels.get("flagged_list", lambda: None) or flagged_table(view.flagged), figure=False),
         _drawn(lambda: view.contributions, figure=False),
         _drawn(lambda: batch_panel(view.batch, view.state.confidence, view.batch_problem), figure=False),
         _drawn(lambda: view.loadings_figure, figure=True),

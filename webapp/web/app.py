@@ -25,6 +25,7 @@ from webapp.web.manage import manage_link, register_manage_routes
 from webapp.state import ViewState, parse_query, to_query
 from webapp.store.services import DEMO_SETTING, Services, create_services, ensure_demo, forget_results_if_unused
 from webapp.ui.callbacks import register_callbacks
+from webapp.ui.long_view import register_long_view
 from webapp.ui.layout import build_layout
 from webapp.ui.view_model import recipe_for, table_summary
 from webapp.web.upload import register_upload_route
@@ -53,6 +54,7 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
     register_export_routes(app.server, services)
     app.layout = build_layout(config)
     register_callbacks(app, services)
+    register_long_view(app, services)
     register_content_security_policy(app)
     register_upload_route(app.server, services.store, limit_bytes=config.max_upload_bytes,
                           inspect=lambda record: _inspect_upload(services, record),
