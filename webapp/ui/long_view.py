@@ -40,6 +40,7 @@ from webapp.figures import (
     variance_table_tsv,
 )
 from webapp.figures.density import density_diagnostics_figure, density_scores_figure
+from webapp.figures.text import level_percent
 from webapp.figures.message import message_figure
 from webapp.state import ViewState, parse_query
 from webapp.store.long_fits import LongFits, long_key
@@ -324,8 +325,8 @@ def _provenance(plan: _Plan, fit, result) -> dict:
         "Fingerprint (SHA-256 of paths, sizes, times)": plan.fingerprint,
         "Samples used": str(fit.pca.n_samples),
         "Variables used": f"{fit.pca.n_variables}: {', '.join(fit.preprocessor.variables)}",
-        "Recipe": " ".join(plan.recipe.describe()),
-        "Components for T² and Q": f"{result.components} at {result.confidence:.1%} confidence",
+        "Preprocessing": " ".join(plan.recipe.describe()),
+        "Components for T² and Q": f"{result.components} at {level_percent(result.confidence)} confidence",
         "Q limit": result.limits[2],
         "Engine": f"Ordinate {__version__}, engine {ENGINE_VERSION}, Dask ({fit.pieces} partitions)",
     }
