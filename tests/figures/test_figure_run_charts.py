@@ -7,7 +7,11 @@ import numpy as np
 import pytest
 
 from tests.monitoring.wine_monitoring import wine_monitoring
-from webapp.figures.run_charts import picked_position, scores_run_chart, statistic_run_chart
+from webapp.figures.run_charts import (
+    picked_position,
+    scores_run_chart,
+    statistic_run_chart,
+)
 
 
 @pytest.fixture(scope="module")

@@ -30,7 +30,7 @@ import numpy as np
 import plotly.graph_objects as go
 
 from webapp.analysis.errors import OrdinateError
-from webapp.figures.palette import NEGATIVE_COLOUR, OKABE_ITO
+from webapp.figures.palette import NEGATIVE_COLOUR
 from webapp.figures.text import escape_text, level_percent, template_literal
 from webapp.figures.theme import (
     AXIS_LINE_COLOUR,
@@ -42,7 +42,7 @@ from webapp.figures.theme import (
     style_for,
 )
 
-__all__ = ["MONITORING_CAUTION", "STATISTICS", "statistic_run_chart", "scores_run_chart", "picked_position"]
+__all__ = ["MONITORING_CAUTION", "STATISTICS", "picked_position", "scores_run_chart", "statistic_run_chart"]
 
 #: Beside the run charts (page, report, exports): our wording of the usual caution.
 MONITORING_CAUTION = (
@@ -52,11 +52,13 @@ MONITORING_CAUTION = (
 )
 STATISTICS = {"t2": "Hotelling's T²", "q": "Q residual"}
 
+_X_TITLE = "Position in production order (reference period below 0)"
+_LEGEND_BELOW = dict(orientation="h", x=0, xanchor="left", y=-0.34, yanchor="top")
 _REFERENCE_COLOUR = "#9AA0A6"
-_NEW_COLOUR = OKABE_ITO[4] if len(OKABE_ITO) > 4 else "#0072B2"
+_NEW_COLOUR = "#0072B2"  # Okabe-Ito blue
 _LIMIT_COLOUR = "#5B6168"
 _SHADE = "rgba(154,160,166,0.16)"
-_HIT_COLOUR = OKABE_ITO[5] if len(OKABE_ITO) > 5 else "#CC79A7"
+_HIT_COLOUR = "#CC79A7"  # Okabe-Ito reddish purple: apart from the vermillion of "beyond the limit"
 
 
 def _column(frame, name: str) -> np.ndarray:
@@ -216,7 +218,7 @@ def statistic_run_chart(frame, reference, statistic: str, *, confidence: float, 
     if positions.size:
         # One step per sample: x steps from -0.5 to +0.5 around each point.
         traces.append(go.Scatter(
-            x=positions, y=limits, mode="lines", line=dict(color=_LIMIT_COLOUR, dash="dash", width=style.line_width,
+            x=positions, y=limits, mode="lines", line=dict(color=TEXT_COLOUR, dash="dash", width=style.line_width,
                                                              shape="hvh"),
             name="limit", meta=f"{what} limit for new samples ({level})", hoverinfo="skip",
         ))
@@ -240,11 +242,11 @@ def statistic_run_chart(frame, reference, statistic: str, *, confidence: float, 
         style,
         title=f"{STATISTICS[statistic]} in production order",
         note_width=HALF_NOTE_WIDTH,
-        xaxis=axis_style("Position (reference period < 0, new samples from 0)", zero_line=False),
+        xaxis=axis_style(_X_TITLE, zero_line=False),
         yaxis=axis_style(what),
         shapes=_frame_shapes(frame, reference, show_reference, style),
-        legend=dict(orientation="h", x=0, y=-0.22, yanchor="top"),
-        margin=dict(b=86),
+        legend=_LEGEND_BELOW,
+        margin=dict(b=104),
     )
     fig.add_traces(traces)
     _apply_range(fig, frame, reference, show_reference, window)
@@ -334,11 +336,11 @@ def scores_run_chart(frame, reference, component: int, *, band: float = 3.0,
         style,
         title=f"Scores on {name} in production order",
         note_width=HALF_NOTE_WIDTH,
-        xaxis=axis_style("Position (reference period < 0, new samples from 0)", zero_line=False),
+        xaxis=axis_style(_X_TITLE, zero_line=False),
         yaxis=axis_style(f"{name} score"),
         shapes=_frame_shapes(frame, reference, show_reference, style),
-        legend=dict(orientation="h", x=0, y=-0.22, yanchor="top"),
-        margin=dict(b=86),
+        legend=_LEGEND_BELOW,
+        margin=dict(b=104),
     )
     fig.add_traces(traces)
     _apply_range(fig, frame, reference, show_reference, window)

@@ -30,14 +30,14 @@ from urllib.parse import parse_qsl, quote, urlencode
 from webapp.state.view_state import _TOKEN_PATTERN, MAX_PC
 
 __all__ = [
-    "MONITOR_STATE_VERSION",
     "MONITOR_PARAMETERS",
     "MONITOR_RULES",
+    "MONITOR_STATE_VERSION",
     "MonitorState",
     "MonitorStateError",
+    "monitor_address",
     "parse_monitor_query",
     "to_monitor_query",
-    "monitor_address",
 ]
 
 MONITOR_STATE_VERSION = 1
@@ -120,7 +120,7 @@ class MonitorState:
                 isinstance(self.saved_view, str) and _TOKEN_PATTERN.fullmatch(self.saved_view)):
             raise MonitorStateError("The saved view id must be a link code.")
 
-    def replace(self, **changes) -> "MonitorState":
+    def replace(self, **changes) -> MonitorState:
         return replace(self, **changes)
 
 
