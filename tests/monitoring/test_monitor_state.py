@@ -105,3 +105,13 @@ def test_invalid_states_are_refused():
         MonitorState(rules=("beyond-limit", "beyond-limit"))
     with pytest.raises(MonitorStateError):
         MonitorState(component=True)
+
+
+def test_every_monitoring_parameter_is_documented():
+    # The docs-test pattern of tests/test_state.py, for the "Monitoring links" section.
+    from pathlib import Path
+
+    text = (Path(__file__).resolve().parents[2] / "docs" / "url-state.md").read_text(encoding="utf-8")
+    section = text.split("## Monitoring links", 1)[1]
+    for name in ["v", *[p.name for p in MONITOR_PARAMETERS]]:
+        assert f"`{name}`" in section, f"document '{name}' under 'Monitoring links' in docs/url-state.md"

@@ -29,7 +29,7 @@ from webapp.state.monitor_state import parse_monitor_query
 from webapp.store.storage import is_token
 from webapp.ui.monitoring_callbacks import MANAGER_COOKIE_PREFIX, register_monitoring_callbacks
 from webapp.ui.monitoring_layout import build_monitor_layout
-from webapp.web.exports import to_safe_csv
+from webapp.web.exports import _attachment, _plain, to_safe_csv
 from webapp.web.filenames import safe_filename
 from webapp.web.monitor_report import build_monitor_report, monitoring_table
 from webapp.web.upload import (
@@ -77,12 +77,6 @@ def register_monitoring(app: dash.Dash, services, *, assets_folder: str) -> dash
 def _json(status: int, payload: dict) -> flask.Response:
     response = flask.jsonify(payload)
     response.status_code = status
-    response.headers["Cache-Control"] = "no-store"
-    return response
-
-
-def _plain(status: int, text: str) -> flask.Response:
-    response = flask.Response(text, status=status, mimetype="text/plain")
     response.headers["Cache-Control"] = "no-store"
     return response
 
@@ -138,37 +132,35 @@ def _register_routes(server: flask.Flask, services, limit_bytes: int) -> None:
                         methods=["GET"], provide_automatic_options=False)
 
     def export_csv(code: str):
+        return _download(code, lambda locked, state: _attachment(
+            to_safe_csv(monitoring_table(services, state)),
+            safe_filename(f"{locked.name}-v{locked.version}-monitoring", ".csv"), "text/csv"))
+
+    def _download(code: str, produce):
         locked = models.get(code) if is_token(code) else None
         if locked is None:
             return _plain(404, "This monitoring link is not known here.")
         state, _ = parse_monitor_query(flask.request.query_string.decode("utf-8", "replace"), code)
         try:
-            text = to_safe_csv(monitoring_table(services, state))
+            return produce(locked, state)
         except OrdinateError as problem:
             return _plain(422, str(problem))
-        name = safe_filename(f"{locked.name} v{locked.version} monitoring", "csv")
-        response = flask.Response(text.encode("utf-8"), mimetype="text/csv")
-        response.headers["Content-Disposition"] = f"attachment; filename=\"{name}\""
-        response.headers["Cache-Control"] = "no-store"
-        return response
+        except Exception:
+            log.exception("a monitoring download failed")
+            return _plain(500, SERVER_PROBLEM_MESSAGE)
 
     server.add_url_rule("/m/<code>/export/monitoring.csv", endpoint="ordinate_monitor_csv", view_func=export_csv,
                         methods=["GET"], provide_automatic_options=False)
 
     def report(code: str):
-        locked = models.get(code) if is_token(code) else None
-        if locked is None:
-            return _plain(404, "This monitoring link is not known here.")
-        state, _ = parse_monitor_query(flask.request.query_string.decode("utf-8", "replace"), code)
-        try:
-            text = build_monitor_report(services, state, base_url=flask.request.host_url)
-        except OrdinateError as problem:
-            return _plain(422, str(problem))
-        name = safe_filename(f"{locked.name} v{locked.version} monitoring report", "html")
-        response = flask.Response(text, mimetype="text/html")
-        response.headers["Content-Disposition"] = f"attachment; filename=\"{name}\""
-        response.headers["Cache-Control"] = "no-store"
-        return response
+        def produce(locked, state):
+            response = _attachment(build_monitor_report(services, state, base_url=flask.request.host_url),
+                                   safe_filename(f"{locked.name}-v{locked.version}-monitoring", "-report.html"),
+                                   "text/html")
+            response.headers["Content-Security-Policy"] = "sandbox"  # as for the saved-view report
+            return response
+
+        return _download(code, produce)
 
     server.add_url_rule("/m/<code>/report.html", endpoint="ordinate_monitor_report", view_func=report,
                         methods=["GET"], provide_automatic_options=False)
