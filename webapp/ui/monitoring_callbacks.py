@@ -36,6 +36,7 @@ from webapp.ui.components import base_url, notice_list
 log = logging.getLogger("ordinate")
 MANAGER_COOKIE_PREFIX = "ordinate_model_key_"
 _HIDDEN = {"display": "none"}
+_WORKSPACE_CLASS = "monitor-workspace"
 
 
 def manager_key(code: str | None) -> str:
@@ -76,7 +77,7 @@ _SHOW_OUTPUTS = [
     Output(L.CONTRIBUTIONS_GRAPH, "figure"), Output(L.CONTRIBUTIONS_CARD, "hidden"),
     Output(L.PLACE_GRAPH, "figure"), Output(L.PLACE_GRAPH, "style"),
     Output(L.LINK_TEXT, "value"), Output(L.EXPORTS, "children"), Output(L.SAVED_LIST, "children"),
-    Output(L.PRESENT_BAR, "hidden"), Output(L.SLIDE_POSITION, "children"),
+    Output(L.PRESENT_BAR, "hidden"), Output(L.SLIDE_POSITION, "children"), Output(L.WORKSPACE, "className"),
 ]
 
 
@@ -125,7 +126,7 @@ def monitor_page(services, pathname, search, *, upload_result=None) -> list:
         empty = message_figure("No monitoring data.")
         return ["Monitoring", "", notice_list(notices, errors), _not_found(), False, True,
                 [], 8, [], 1, 3.0, None, None, [], empty, empty, empty, [], [], [], empty, True,
-                empty, _HIDDEN, "", [], [], True, ""]
+                empty, _HIDDEN, "", [], [], True, "", _WORKSPACE_CLASS]
     state = mv.shown_state(monitored, state)
     notices = (*notices, *monitored.notices)
     locked = monitored.locked
@@ -159,7 +160,7 @@ def monitor_page(services, pathname, search, *, upload_result=None) -> list:
         picked.contributions if picked else message_figure(""), picked is None,
         picked.place if picked else message_figure(""), {"height": "320px"} if picked else _HIDDEN,
         link, export_links(locked.code, query), saved_list(monitor_views_for(services.store, locked.code)),
-        not state.present, position,
+        not state.present, position, _WORKSPACE_CLASS + (" is-presenting" if state.present else ""),
     ]
 
 
