@@ -139,3 +139,15 @@ def test_picked_position_reads_a_click():
     assert picked_position({"points": [{"customdata": ["W1", "", -1]}]}) is None
     assert picked_position({"points": [{}]}) is None
     assert picked_position(None) is None
+
+
+def test_a_model_without_uploads_draws_the_reference_period_only(wine):
+    model, reference, frame = wine
+    empty = frame.iloc[0:0]
+    for statistic in ("t2", "q"):
+        fig = statistic_run_chart(empty, reference, statistic, confidence=model.confidence)
+        assert len(_trace(fig, "new samples").x) == 0
+        assert _trace(fig, "limit") is None and _trace(fig, "beyond limit") is None
+        assert len(_trace(fig, "reference").x) == len(reference.labels)
+    fig = scores_run_chart(empty, reference, 1)
+    assert len(_trace(fig, "new samples").x) == 0

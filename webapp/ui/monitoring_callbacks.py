@@ -133,7 +133,7 @@ def monitor_page(services, pathname, search, *, upload_result=None) -> list:
     charts = mv.run_charts(monitored, state, presentation=state.present)
     picked = None
     try:
-        picked = mv.picked_sample(services, monitored, state.pick, presentation=state.present)
+        picked = mv.picked_sample(services, monitored, state.pick)
     except OrdinateError as problem:
         errors.append(str(problem))
     if state.pick is not None and picked is None and not errors:
