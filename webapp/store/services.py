@@ -17,6 +17,7 @@ from webapp.config import DEMO_TITLE, AppConfig
 from webapp.store.compute import ComputeLayer
 from webapp.store.datadir import secure_data_dir
 from webapp.store.follow import FollowSessions
+from webapp.store.reference_models import ReferenceModelStore
 from webapp.store.storage import DataStore, DatasetRecord
 
 __all__ = ["DEMO_SETTING", "Services", "create_services", "ensure_demo", "forget_results_if_unused"]
@@ -32,13 +33,14 @@ class Services:
     store: DataStore
     compute: ComputeLayer
     follows: FollowSessions
+    reference_models: ReferenceModelStore
 
 
 def create_services(config: AppConfig) -> Services:
     secure_data_dir(config.data_dir)
     store = DataStore(config.data_dir)
     compute = ComputeLayer(store, Path(config.data_dir) / "results")
-    return Services(config, store, compute, FollowSessions(store))
+    return Services(config, store, compute, FollowSessions(store), ReferenceModelStore(config.data_dir))
 
 
 def forget_results_if_unused(services: Services, record: DatasetRecord) -> None:
