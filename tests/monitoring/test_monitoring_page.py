@@ -194,7 +194,7 @@ def test_csv_export_is_the_windowed_table_and_formula_safe(app, services, locked
 
 def test_report_of_a_monitoring_view(app, services, locked):
     lock, _, _ = locked
-    view = save_monitor_view(services.store, lock.code, to_monitor_query(MonitorState(model=lock.code, pc=2)),
+    view = save_monitor_view(services.store, lock.code, to_monitor_query(MonitorState(model=lock.code, component=2)),
                              title="Week 14 review", note="Drift in **hue**?")
     client = app.server.test_client()
     query = to_monitor_query(MonitorState(model=lock.code, component=2, saved_view=view.view_id))
@@ -207,7 +207,7 @@ def test_report_of_a_monitoring_view(app, services, locked):
 
 def test_presentation_steps_through_saved_monitoring_views(services, locked):
     lock, _, _ = locked
-    first = save_monitor_view(services.store, lock.code, to_monitor_query(MonitorState(model=lock.code, pc=2)),
+    first = save_monitor_view(services.store, lock.code, to_monitor_query(MonitorState(model=lock.code, component=2)),
                               title="one")
     second = save_monitor_view(services.store, lock.code,
                                to_monitor_query(MonitorState(model=lock.code, run_length=5)), title="two")

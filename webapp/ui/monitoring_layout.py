@@ -152,6 +152,8 @@ def build_monitor_layout(config) -> html.Div:
                     html.Div(className="share", children=[
                         html.Span("Monitoring view link", className="field"),
                         dcc.Input(id=LINK_TEXT, type="text", readOnly=True, className="link-text"),
+                        dcc.Clipboard(target_id=LINK_TEXT, className="copy-button",
+                                      title="Copy the monitoring view link"),
                     ]),
                     html.Div(id=EXPORTS, className="monitor-exports"),
                     html.Div(className="monitor-save", children=[
