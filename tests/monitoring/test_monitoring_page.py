@@ -217,3 +217,31 @@ def test_presentation_steps_through_saved_monitoring_views(services, locked):
     assert (state.saved_view, state.run_length) == (second.view_id, 5)
     assert presentation_step(services, state, L.SLIDE_NEXT).saved_view == second.view_id
     assert presentation_step(services, state, L.PRESENT_EXIT).present is False
+
+
+def test_lock_a_saved_view_and_lock_a_newer_version(services):
+    # The saved view's model is frozen: its limits are those of the view's fit (iris, scikit-learn's copy).
+    from tests.app.conftest import iris_frame
+    from webapp.state import ViewState
+    from webapp.ui import view_model as vm
+    from webapp.ui.locking import lock_result, lock_saved_view, locked_list
+
+    token = services.store.add_bytes(iris_frame().to_csv(index=False).encode(), "iris.csv").token
+    saved = vm.save_view(services, ViewState(dataset=token, components=2), title="Iris K=2", note="", author="",
+                         parent=None)
+    first, key = lock_saved_view(services, saved.view_id, "Iris release model")
+    resolved = vm.resolve(services, ViewState(dataset=token, components=2))
+    diagnostics = vm.view_diagnostics(resolved, ViewState(dataset=token, components=2))
+    assert first.version == 1 and first.model.loadings.shape[1] == 2
+    assert first.model.q_limit == pytest.approx(diagnostics.q_limit)
+    np.testing.assert_allclose(first.reference.t2, diagnostics.t2)
+    assert first.data_fingerprint == hashlib.sha256(services.store.read_bytes(resolved.record)).hexdigest()
+    assert services.reference_models.check_manager_key(first.code, key)
+    second, _ = lock_saved_view(services, saved.view_id, "iris RELEASE model")
+    assert second.version == 2 and services.reference_models.get(first.code).version == 1
+    shown = str(lock_result(second, "k-e-y", "http://host/"))
+    assert f"http://host/m/{second.code}" in shown and "version 2" in shown and "manage?key=k-e-y" in shown
+    assert "version 1" in str(locked_list(services, token)) and "version 2" in str(locked_list(services, token))
+    # The version asked for in the address (ver=) is found by name.
+    out = _outputs(monitor_page(services, f"/m/{second.code}", "ver=1"))
+    assert out[f"{L.TITLE}.children"].endswith("version 1")

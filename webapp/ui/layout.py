@@ -113,6 +113,7 @@ LOCK_PANEL = "lock-panel"
 LOCK_NAME = "lock-name"
 LOCK_CONFIRM = "lock-confirm"
 LOCK_RESULT = "lock-result"
+LOCKED_LIST = "locked-list"
 
 CONFIDENCE_CHOICES = (0.9, 0.95, 0.99, 0.999)
 SLIDE_FIGURE_WORDS = {
@@ -309,6 +310,7 @@ def _cards() -> html.Main:
         _scores_card(), _variance_card(), _diagnostics_card(), _loadings_card(),
         html.Section(className="card saved-card", children=[
             html.H2("Saved views of this dataset"), html.Div(id=SAVED_LIST),
+            html.H3("Reference models locked from this dataset", className="locked-head"), html.Div(id=LOCKED_LIST),
         ]),
         html.Section(className="card provenance-card", children=[
             html.H2("Provenance"), html.Div(id=PROVENANCE),

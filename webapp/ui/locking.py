@@ -23,6 +23,35 @@ from webapp.ui.components import base_url
 log = logging.getLogger("ordinate")
 
 
+def lock_saved_view(services, view_id: str, name: str):
+    """Lock the model of saved view ``view_id`` under ``name``: returns (LockedModel, manager key).
+
+    The model is the saved view's fit at its K and confidence (as its model JSON
+    download); the reference period is the fit's own samples with their scores,
+    T² and Q; the fingerprint is the SHA-256 of the dataset's bytes.
+    """
+    from webapp.analysis.model_io import model_from_analysis
+    from webapp.analysis.monitoring import reference_period
+    from webapp.analysis.pipeline import Analysis
+    from webapp.ui.view_model import resolve, view_diagnostics
+
+    saved = services.store.view(view_id)
+    if saved is None:
+        raise OrdinateError("This saved view is not known here, so nothing was locked.")
+    state, _ = parse_query(saved.query)
+    state = state.replace(dataset=saved.dataset_token, saved_view=saved.view_id, present=False, follow=None,
+                          batch=None, picked=None)
+    resolved = resolve(services, state)
+    diagnostics = view_diagnostics(resolved, state)
+    model = model_from_analysis(Analysis(resolved.fitted, diagnostics))
+    fitted = resolved.fitted
+    reference = reference_period(model, fitted.prepared.sample_labels, fitted.pca.scores, diagnostics.t2,
+                                 diagnostics.q)
+    return services.reference_models.lock(model, name=name, reference=reference, source_view_id=saved.view_id,
+                                          dataset_token=saved.dataset_token,
+                                          data_fingerprint=resolved.record.content_hash)
+
+
 def lock_result(locked, manager_key: str, host: str) -> list:
     """What the page says after a lock: the version, the monitoring link and the private manager link."""
     code = locked.code
@@ -39,11 +68,30 @@ def lock_result(locked, manager_key: str, host: str) -> list:
     ]
 
 
+def locked_list(services, dataset_token: str | None) -> list:
+    """Links to the monitoring pages of the models locked from one dataset, newest version last."""
+    models = [m for m in services.reference_models.all() if dataset_token and m.dataset_token == dataset_token]
+    if not models:
+        return [html.P("None yet. Open a saved view and use “Lock as reference model…” to monitor new samples "
+                       "against it over time.", className="quiet")]
+    return [html.Ul(className="saved-items", children=[
+        html.Li(className="saved-item", children=[
+            html.A(f"{m.name} · version {m.version}", href=f"/m/{m.code}", className="saved-link"),
+            html.Span(f" locked {m.locked_at[:10]}", className="saved-meta"),
+        ]) for m in sorted(models, key=lambda m: (m.name.casefold(), m.version))
+    ])]
+
+
 def register_locking(app, services) -> None:
     @app.callback(Output(L.LOCK_PANEL, "hidden"), Input(L.URL, "search"))
     def show_lock_panel(search):
         state, _ = parse_query(search)
         return not (state.saved_view and not state.present and not state.follow)
+
+    @app.callback(Output(L.LOCKED_LIST, "children"), Input(L.URL, "search"), Input(L.LOCK_RESULT, "children"))
+    def show_locked_models(search, _locked):
+        state, _ = parse_query(search)
+        return locked_list(services, state.dataset)
 
     @app.callback(Output(L.LOCK_RESULT, "children"), Input(L.LOCK_CONFIRM, "n_clicks"), State(L.LOCK_NAME, "value"),
                   State(L.URL, "search"), prevent_initial_call=True)
@@ -54,8 +102,6 @@ def register_locking(app, services) -> None:
         name = (name or "").strip()
         if not name:
             return html.P("Give the reference model a name first.", className="notice notice-error")
-        from webapp.store.reference_models import lock_saved_view
-
         try:
             locked, key = lock_saved_view(services, state.saved_view, name)
         except OrdinateError as problem:
