@@ -151,3 +151,17 @@ def test_a_model_without_uploads_draws_the_reference_period_only(wine):
         assert len(_trace(fig, "reference").x) == len(reference.labels)
     fig = scores_run_chart(empty, reference, 1)
     assert len(_trace(fig, "new samples").x) == 0
+
+
+def test_without_a_window_the_chart_opens_on_the_new_samples(wine):
+    from webapp.figures.run_charts import REFERENCE_SHOWN
+
+    model, reference, frame = wine
+    assert len(reference.labels) > max(REFERENCE_SHOWN, len(frame))
+    fig = statistic_run_chart(frame, reference, "t2", confidence=model.confidence)
+    shown = max(REFERENCE_SHOWN, len(frame))
+    assert tuple(fig.layout.xaxis.range) == (-shown - 0.5, frame["position"].max() + 0.5)
+    assert len(_trace(fig, "reference").x) == len(reference.labels)  # every reference sample is still drawn
+    assert fig.layout.xaxis.range is not None
+    few = statistic_run_chart(frame, reference, "t2", confidence=model.confidence, show_reference=False)
+    assert few.layout.xaxis.range is None

@@ -115,11 +115,20 @@ def _frame_shapes(frame, reference, show_reference: bool, style) -> list[dict]:
     return shapes
 
 
+#: Without a window, a chart opens on the new samples and at most this many (or as many as there are new
+#: samples, if more) reference samples before them; the toolbar's autoscale shows the whole reference period.
+REFERENCE_SHOWN = 30
+
+
 def _x_range(frame, reference, show_reference: bool, window: tuple[int | None, int | None]) -> list[float] | None:
     first, last = window
-    if first is None and last is None:
-        return None
     positions = frame["position"].to_numpy(dtype=np.int64)
+    if first is None and last is None:
+        n_ref = len(reference.labels)
+        shown = max(REFERENCE_SHOWN, positions.size)
+        if not show_reference or n_ref <= shown or positions.size == 0:
+            return None
+        return [-shown - 0.5, float(positions.max()) + 0.5]
     low = -len(reference.labels) if show_reference else 0
     high = int(positions.max()) if positions.size else 0
     low = low if first is None else first
@@ -197,7 +206,9 @@ def statistic_run_chart(frame, reference, statistic: str, *, confidence: float, 
     for new samples); the dashed "median" line is the reference period's median
     that the run rule counts against. ``hits`` are rule hits (objects with
     ``rule``, ``statistic``, ``first``, ``last``); runs above the median are
-    ringed. ``window`` (first, last) limits the x range to those positions.
+    ringed. ``window`` (first, last) limits the x range to those positions; without one the
+    chart opens on the new samples and the last :data:`REFERENCE_SHOWN` reference samples
+    (or as many as there are new samples), all of them drawn.
     """
     if statistic not in STATISTICS:
         raise OrdinateError(f"Unknown statistic '{statistic}'; use one of: {', '.join(STATISTICS)}.")
