@@ -10,7 +10,7 @@ import json
 import pytest
 from selenium import webdriver
 
-from tests.browser.test_dashboard import TIMEOUT, _headless_options, _text, _wait_for
+from tests.browser.test_dashboard import _headless_options, _text, _wait_for
 from tests.monitoring.test_monitoring_page import locked, services  # noqa: F401  (fixtures)
 from webapp.config import AppConfig
 from webapp.web.app import create_app

@@ -106,7 +106,7 @@ def _frame_shapes(frame, reference, show_reference: bool, style) -> list[dict]:
         shapes.append(dict(
             type="rect", name="reference period", xref="x", yref="paper", x0=-n_ref - 0.5, x1=-0.5, y0=0, y1=1,
             fillcolor=_SHADE, line=dict(width=0), layer="below",
-            label=dict(text="Reference period", textposition="top left", padding=4,
+            label=dict(text="Reference period", textposition="top right", padding=4,
                        font=dict(size=style.note_size, color=MUTED_TEXT_COLOUR)),
         ))
     for x in _boundaries(frame):

@@ -14,7 +14,7 @@ from dataclasses import asdict, dataclass
 
 from webapp.store.storage import DataStore, _clean_text, is_token, new_token
 
-__all__ = ["SavedMonitorView", "save_monitor_view", "monitor_view", "monitor_views_for"]
+__all__ = ["SavedMonitorView", "monitor_view", "monitor_views_for", "save_monitor_view"]
 
 
 @dataclass(frozen=True)

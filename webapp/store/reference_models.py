@@ -17,7 +17,7 @@ import hmac
 import os
 import tempfile
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 
 import diskcache
@@ -28,7 +28,7 @@ from webapp.analysis.model_io import ReferenceModel, project_table
 from webapp.analysis.monitoring import ReferencePeriod, UploadInfo, monitoring_frame
 from webapp.store.storage import _clean_filename, _clean_text, is_token, new_token
 
-__all__ = ["LockedModel", "ReferenceModelStore", "DEMO_MODEL_SETTING", "seed_demo"]
+__all__ = ["DEMO_MODEL_SETTING", "LockedModel", "ReferenceModelStore", "seed_demo"]
 
 DEMO_MODEL_SETTING = "demo-reference-model"
 DEMO_MODEL_NAME = "Oat dessert release model (synthetic demo)"
@@ -49,7 +49,7 @@ class LockedModel:
 
 
 def _now() -> str:
-    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+    return datetime.now(UTC).isoformat(timespec="seconds")
 
 
 class ReferenceModelStore:

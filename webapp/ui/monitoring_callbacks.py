@@ -28,7 +28,11 @@ from webapp.state.monitor_state import (
     parse_monitor_query,
     to_monitor_query,
 )
-from webapp.store.monitor_views import monitor_view, monitor_views_for, save_monitor_view
+from webapp.store.monitor_views import (
+    monitor_view,
+    monitor_views_for,
+    save_monitor_view,
+)
 from webapp.ui import monitoring_layout as L
 from webapp.ui import monitoring_view as mv
 from webapp.ui.components import base_url, notice_list

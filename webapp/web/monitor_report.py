@@ -8,7 +8,7 @@ shows. The report reuses the page frame of the saved-view report
 from __future__ import annotations
 
 import html
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 import pandas as pd
 
@@ -20,7 +20,7 @@ from webapp.store.monitor_views import monitor_view
 from webapp.ui import monitoring_view as mv
 from webapp.web.report import _document, _figure_html, _list, _section
 
-__all__ = ["monitoring_table", "build_monitor_report", "TABLE_COLUMNS"]
+__all__ = ["TABLE_COLUMNS", "build_monitor_report", "monitoring_table"]
 
 TABLE_COLUMNS = ("position", "upload", "file_name", "uploaded_by", "uploaded_at", "sample", "order",
                  "t2", "t2_limit", "t2_beyond", "q", "q_limit", "q_beyond", "rule_hits")
@@ -86,7 +86,7 @@ def build_monitor_report(services, state: MonitorState, *, base_url: str = "") -
         figure.update_layout(height=420)
     saved = monitor_view(services.store, state.saved_view) if state.saved_view else None
     title = saved.title if saved else f"Monitoring of {locked.name} v{locked.version}"
-    now = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    now = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
     header = (
         '<header class="report-head">\n<p class="kicker">Ordinate monitoring report</p>\n'
         f"<h1>{_e(title)}</h1>\n"

@@ -19,7 +19,7 @@ monitoring link; a wrong key gets the same 404 as an unknown model.
 from __future__ import annotations
 
 import logging
-from urllib.parse import quote
+from urllib.parse import quote, unquote
 
 import dash
 import flask
@@ -27,7 +27,10 @@ import flask
 from webapp.analysis.errors import OrdinateError
 from webapp.state.monitor_state import parse_monitor_query
 from webapp.store.storage import is_token
-from webapp.ui.monitoring_callbacks import MANAGER_COOKIE_PREFIX, register_monitoring_callbacks
+from webapp.ui.monitoring_callbacks import (
+    MANAGER_COOKIE_PREFIX,
+    register_monitoring_callbacks,
+)
 from webapp.ui.monitoring_layout import build_monitor_layout
 from webapp.web.exports import _attachment, _plain, to_safe_csv
 from webapp.web.filenames import safe_filename
@@ -40,7 +43,7 @@ from webapp.web.upload import (
     too_large_message,
 )
 
-__all__ = ["MONITOR_PREFIX", "monitoring_link", "manager_link", "register_monitoring"]
+__all__ = ["MONITOR_PREFIX", "manager_link", "monitoring_link", "register_monitoring"]
 
 MONITOR_PREFIX = "/m/"
 log = logging.getLogger("ordinate.monitoring")
@@ -98,8 +101,6 @@ def _register_routes(server: flask.Flask, services, limit_bytes: int) -> None:
             return _json(413, {"error": too_large_message(limit_bytes)})
         if not data:
             return _json(400, {"error": "The file is empty (0 bytes). Choose a CSV file of new samples."})
-        from urllib.parse import unquote
-
         name = unquote(request.headers.get(FILENAME_HEADER, ""), errors="replace").replace("\\", "/")
         name = name.rsplit("/", 1)[-1].strip() or "new samples.csv"
         by = request.args.get("by", "")[:100]
