@@ -98,10 +98,12 @@ def _register_show(app, services) -> None:
             return _problem_page("Something went wrong while drawing this monitoring page. Reload the page; "
                                  "if it happens again, tell the administrator.")
 
-    @app.callback(Output(L.UPLOAD_ZONE, "data-upload-url"), Input(L.URL, "pathname"), Input(L.UPLOAD_BY, "value"))
-    def point_uploads_at_the_model(pathname, uploaded_by):
-        code, _ = model_code_from_path(pathname)
-        return upload_url(code, uploaded_by) if code else ""
+    @app.callback(Output(L.UPLOAD_ZONE, "data-upload-url"), Input(L.URL, "pathname"), Input(L.URL, "search"),
+                  Input(L.UPLOAD_BY, "value"))
+    def point_uploads_at_the_model(pathname, search, uploaded_by):
+        state, _ = read_address(pathname, search)
+        locked, _ = mv.locked_model_for(services, state) if state.model else (None, ())
+        return upload_url(locked.code, uploaded_by) if locked else ""
 
 
 def _problem_page(message: str) -> list:
