@@ -61,6 +61,7 @@
     var DEFAULT_URL = "/api/upload";
     var BYTES_PER_MB = 1024 * 1024;
     var NOTE_MS = 6000;
+    var SUCCESS_MS = 15000;
     var POINTER_MS = 8000;
     var ACCEPT = ".csv,.tsv,.txt,text/csv,text/tab-separated-values";
     // The usual "visually hidden" pattern: invisible, yet present and usable.
@@ -175,11 +176,12 @@
         renderStatus();
     }
 
-    function showNote(text) {
+    function showNote(text, durationMs) {
+        var duration = durationMs || NOTE_MS;
         note = text;
-        noteUntil = Date.now() + NOTE_MS;
+        noteUntil = Date.now() + duration;
         renderStatus();
-        window.setTimeout(renderStatus, NOTE_MS + 50);
+        window.setTimeout(renderStatus, duration + 50);
     }
 
     function showProgress(percent) {
@@ -274,7 +276,7 @@
         var xhr = new XMLHttpRequest();
         var totalMb = formatMb(file.size);
         setBusy(zone, true);
-        showStatus("Sending “" + file.name + "”: 0% (0.0 of " + totalMb + " MB)", false);
+        showStatus("Sending “" + file.name + "”: 0 % (0.0 of " + totalMb + " MB)", false);
         showProgress(0);
 
         xhr.open("POST", uploadUrl(zone), true);
@@ -286,7 +288,7 @@
         xhr.upload.onprogress = function (event) {
             var total = event.lengthComputable ? event.total : file.size;
             var percent = total > 0 ? Math.min(100, Math.floor((event.loaded / total) * 100)) : 0;
-            statusText = "Sending “" + file.name + "”: " + percent + "% (" +
+            statusText = "Sending “" + file.name + "”: " + percent + " % (" +
                 formatMb(event.loaded) + " of " + totalMb + " MB)";
             renderStatus();
             showProgress(percent);
@@ -308,11 +310,14 @@
                 hideProgress();
                 var published = publish({ token: body.token, summary: body.summary || {}, purpose: purpose });
                 if (published) {
+                    // A success message fades (it would otherwise sit over the page's top edge);
+                    // an error stays until the next file.
                     var after = zone && zone.getAttribute("data-received-note");
-                    showStatus("Received “" + file.name + "” (" + formatSize(file.size) + ")." +
+                    showStatus("", false);
+                    showNote("Received “" + file.name + "” (" + formatSize(file.size) + ")." +
                         (after !== null && after !== undefined ? (after ? " " + after : "") :
-                            (purpose === "batch" ? "" : " Manage it under “About this data”.")),
-                        false);
+                            (purpose === "batch" ? "" : " Its manager link is under “About this data”.")),
+                        SUCCESS_MS);
                 } else {
                     showStatus("The file was received, but the page is not ready to show it. Reload the page and add the file again.", true);
                 }

@@ -546,6 +546,9 @@ def test_link_tokens_are_long_random_and_url_safe():
     tokens = [new_token() for _ in range(1000)]
     assert all(len(t) == 24 and re.fullmatch(r"[A-Za-z0-9_-]{24}", t) and TOKEN_PATTERN.match(t) for t in tokens)
     assert len(set(tokens)) == 1000
+    # About 1 in 64 raw urlsafe codes starts with '-', which argparse reads as an option
+    # (`ordinate report -abc...` failed): none of 1000 may (a chance of (63/64)**1000 ≈ 1e-7 to pass by luck).
+    assert not any(t.startswith("-") for t in tokens)
 
 
 # --- Content-Security-Policy ------------------------------------------------------------------------

@@ -198,3 +198,46 @@ def test_spectral_options_are_refused_for_the_long_data_engine(iris_csv, capsys)
         assert main(["analyze", str(iris_csv), "--engine", "dask", *flags]) == 2
         err = capsys.readouterr().err
         assert flags[0] in err and "in-memory engine only" in err and "Traceback" not in err
+
+
+def _every_option(parser):
+    """(command path, action) for every option of every subcommand, recursively."""
+    import argparse
+
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            for name, sub in action.choices.items():
+                for path, inner in _every_option(sub):
+                    yield (name, *path), inner
+        elif action.option_strings and action.help is not argparse.SUPPRESS:
+            yield (), action
+
+
+def test_every_cli_option_has_a_help_text_that_states_its_default():
+    # Common practice for command-line tools: `--help` alone tells a user what each option does
+    # and what happens without it.
+    from webapp.cli.main import _parser
+
+    silent = [(" ".join(path), action.option_strings[0]) for path, action in _every_option(_parser())
+              if action.dest not in ("help", "version") and not action.required
+              and "default" not in (action.help or "")]
+    assert silent == []
+
+
+def test_the_label_column_option_has_one_name_and_the_former_name_still_works(iris_csv, tmp_path, capsys):
+    from webapp.cli.main import _parser
+
+    help_text = _parser()._subparsers._group_actions[0].choices["analyze"].format_help()
+    assert "--label-column" in help_text and "--id-column" not in help_text
+    import pandas as pd
+
+    frame = pd.read_csv(iris_csv)
+    frame.insert(0, "vial", [f"V{i:03d}" for i in range(len(frame))])  # detected first, as the leftmost labels
+    two_labels = tmp_path / "two_labels.csv"
+    frame.to_csv(two_labels, index=False)
+    assert main(["analyze", str(two_labels), "--json", str(tmp_path / "detected.json")]) == 0
+    assert json.loads((tmp_path / "detected.json").read_text())["samples"][:2] == ["V000", "V001"]
+    for flag in ("--label-column", "--id-column"):
+        out = tmp_path / f"{flag}.json"
+        assert main(["analyze", str(two_labels), flag, "flower", "--json", str(out)]) == 0
+        assert json.loads(out.read_text())["samples"][:2] == ["F000", "F001"]

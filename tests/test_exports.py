@@ -205,8 +205,8 @@ def test_loadings_export_escapes_variable_names_and_matches_scikit_learn(service
 def test_variance_export_matches_scikit_learn_and_published_values(services, tricky):
     text, _ = export_csv(services, ViewState(dataset=tricky.token), "variance")
     rows = read_csv_text(text)
-    assert rows[0] == ["Component", "Eigenvalue", "Explained (%)", "Cumulative (%)", "Above mean eigenvalue",
-                       "Above broken stick", "Above parallel analysis", "Kept"]
+    assert rows[0] == ["Component", "Eigenvalue", "Explained (%)", "Cumulative (%)", "Kaiser rule",
+                       "Broken stick", "Parallel analysis", "Kept"]
     body = rows[1:]
     assert [r[0] for r in body] == ["PC1", "PC2", "PC3", "PC4"]
     eigenvalues = np.array([float(r[1]) for r in body])
@@ -334,7 +334,7 @@ def test_batch_export_scores_new_samples_like_the_model_file_and_escapes_labels(
 
 def test_batch_export_without_a_batch_is_a_plain_message(client, tricky):
     response = client.get(_url("batch.csv", ViewState(dataset=tricky.token)))
-    assert response.status_code == 422 and b"scores no new batch" in response.data
+    assert response.status_code == 422 and b"scores no new samples" in response.data
 
 
 def test_route_csv_is_the_same_as_the_function(client, services, tricky):

@@ -315,7 +315,7 @@ def test_a_scored_new_batch_is_summarised_with_its_escaped_labels(services, iris
     state = ViewState(dataset=iris.token, batch=token)
     report = without_bundle(build_report_html(services, save(services, iris, state)))
     diagnostics = section(report, "diagnostics")
-    assert "New batch “batch &lt;2&gt;.csv” (the stars): 4 samples scored against this model" in diagnostics
+    assert "New samples “batch &lt;2&gt;.csv” (the stars): 4 samples scored against this model" in diagnostics
     flagged = build_view(services, state, wait=True).batch.rows()
     assert flagged and f"{len(flagged)} above a limit for new samples" in diagnostics
     assert diagnostics.count("<tr><th scope=\"row\">") >= len(flagged)

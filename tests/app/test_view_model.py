@@ -281,8 +281,8 @@ def test_a_new_batch_is_scored_as_scikit_learn_transforms_it(services, iris_toke
     X = reference.iloc[:, 2:].to_numpy()
     mean, sd = X.mean(0), X.std(0, ddof=1)
     expected = PCA().fit((X - mean) / sd).transform((batch.iloc[:, 2:].to_numpy() - mean) / sd)
-    trace = next(t for t in view.scores_figure.data if t.name.startswith("New batch"))
-    assert trace.name == "New batch (10)"
+    trace = next(t for t in view.scores_figure.data if t.name.startswith("New samples"))
+    assert trace.name == "New samples (10)"
     for axis, component in (("x", 0), ("y", 1)):
         ours = np.asarray(trace[axis], dtype=float)
         sign = np.sign(ours @ expected[:, component])
@@ -306,7 +306,7 @@ def test_a_new_batch_uses_the_t2_limit_for_new_samples(services, iris_token):
     # The batch's T² and Q are the same numbers as those of the same rows in the model.
     model_view = vm.build_view(services, ViewState(dataset=iris_token, components=2, confidence=0.99), wait=True)
     model_trace = [t for t in model_view.diagnostics_figure.data if t.name == "setosa"][0]
-    batch_trace = [t for t in view.diagnostics_figure.data if t.name.startswith("New batch")][0]
+    batch_trace = [t for t in view.diagnostics_figure.data if t.name.startswith("New samples")][0]
     np.testing.assert_allclose(np.asarray(batch_trace.x, float), np.asarray(model_trace.x, float)[:5], rtol=1e-5)
 
 
@@ -319,7 +319,7 @@ def test_a_batch_that_cannot_be_scored_is_a_notice_not_a_failure(services, iris_
     from webapp.ui.components import batch_panel
 
     panel = str(batch_panel(view.batch, 0.95, view.batch_problem))
-    assert "petal width (cm)" in panel and "Stop scoring this batch" in panel
+    assert "petal width (cm)" in panel and "Stop scoring these samples" in panel
     gone = vm.build_view(services, ViewState(dataset=iris_token, batch="Q" * 20), wait=True)
     assert gone.batch is None and any("not known here" in n for n in gone.notices)
     assert "not known here" in gone.batch_problem

@@ -265,16 +265,16 @@ def test_a_new_batch_is_scored_against_the_open_model(dash_duo, app, iris_csv, t
     batch.to_csv(path, index=False)
     dash_duo.find_element("#batch-button").click()  # the next chosen file is a batch
     _upload(dash_duo, path)
-    dash_duo.wait_for_contains_text("#batch-panel", "New batch: new-batch.csv", timeout=TIMEOUT)
+    dash_duo.wait_for_contains_text("#batch-panel", "New samples: new-batch.csv", timeout=TIMEOUT)
     assert "batch=" in dash_duo.driver.current_url and "ds=" in dash_duo.driver.current_url
     assert "iris.csv" in dash_duo.find_element("#dataset-title").text  # still the reference analysis
-    _wait_for(lambda: "New batch (6)" in _legend_text(dash_duo))
+    _wait_for(lambda: "New samples (6)" in _legend_text(dash_duo))
     panel = dash_duo.find_element("#batch-panel").text
     assert "6 sample(s) scored against this model" in panel and "N0" in panel
 
     dash_duo.find_element("#batch-remove").click()
     _wait_for(lambda: "batch=&" in dash_duo.driver.current_url)
-    _wait_for(lambda: "New batch" not in _legend_text(dash_duo))
+    _wait_for(lambda: "New samples" not in _legend_text(dash_duo))
     assert dash_duo.find_element("#batch-panel").text == ""
 
 

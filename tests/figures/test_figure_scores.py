@@ -243,7 +243,7 @@ def test_ellipse_dash_by_level_and_hotelling_style(iris):
     # k = 1 and 3: 39.3 % and 98.9 % (chi-square, 2 df).
     assert f"{100 * stats.chi2.cdf(1.0, 2):.1f} %" in lines[0].name
     assert f"{100 * stats.chi2.cdf(9.0, 2):.1f} %" in lines[2].name
-    assert lines[3].name.startswith("T² 95 % ellipse · observed ")
+    assert lines[3].name.startswith("T² 95 % ellipse of these 2 PCs · observed ")
     assert lines[3].line.color == lines[0].line.color  # neutral, shared with all-sample ellipses
 
 
@@ -317,15 +317,54 @@ def test_highlighted_sample_gets_a_ring(iris):
     assert not [t for t in _figure(iris, highlighted="nobody").data if t.name == "Picked sample"]
 
 
+def _sample_labels(fig):
+    return [a for a in fig.layout.annotations if a.name == "sample-label"]
+
+
 def test_labels_are_written_only_up_to_the_limit():
-    x, y, labels = _cloud(20)
-    fig = scores_figure(x=x, y=y, labels=labels, groups=None, x_title="a", y_title="b", show_labels=True)
-    assert fig.data[0].mode == "markers+text"
-    assert list(fig.data[0].text) == labels.tolist()
+    x, y, labels = _cloud(8)
+    x = x * 10  # eight points far apart: every label finds a place
+    fig = scores_figure(x=x, y=y * 10, labels=labels, groups=None, x_title="a", y_title="b", show_labels=True)
+    assert fig.data[0].mode == "markers"  # written as placed annotations, not as trace text
+    assert sorted(a.text for a in _sample_labels(fig)) == sorted(labels.tolist())
+    assert "left out" not in _notes(fig)
     x, y, labels = _cloud(LABEL_LIMIT + 1)
     fig = scores_figure(x=x, y=y, labels=labels, groups=None, x_title="a", y_title="b", show_labels=True)
-    assert fig.data[0].mode == "markers"
+    assert _sample_labels(fig) == []
     assert "labels are hidden" in _notes(fig)
+
+
+def _pixel_boxes(fig, annotations, size):
+    from webapp.figures.arrow_labels import NOMINAL_PLOT_PX
+    from webapp.figures.label_placement import PlotFrame, text_box
+
+    frame = PlotFrame(tuple(fig.layout.xaxis.range), tuple(fig.layout.yaxis.range), *NOMINAL_PLOT_PX[("scores", False)])
+    sx, sy = frame.pixels_per_unit
+    boxes = []
+    for a in annotations:
+        w, h = text_box(a.text, size)
+        cx, cy = (a.x - frame.x_range[0]) * sx, (a.y - frame.y_range[0]) * sy
+        boxes.append((cx - w / 2, cy - h / 2, cx + w / 2, cy + h / 2))
+    return boxes
+
+
+def _overlapping_pairs(boxes):
+    return [(i, j) for i in range(len(boxes)) for j in range(i + 1, len(boxes))
+            if boxes[i][0] < boxes[j][2] and boxes[j][0] < boxes[i][2]
+            and boxes[i][1] < boxes[j][3] and boxes[j][1] < boxes[i][3]]
+
+
+def test_sample_labels_and_arrow_names_never_overlap_and_the_left_out_are_counted(iris):
+    # Iris (Fisher 1936, via scikit-learn): 150 samples in a crowded cloud, with the four arrows.
+    arrows = loading_arrows(iris["loadings"][:, :2], iris["variables"], iris["eigenvalues"][:2], "correlation",
+                            float(np.abs(iris["scores"][:, :2]).max()))
+    fig = _figure(iris, arrows=arrows, show_labels=True)
+    size = fig.layout.annotations[-1].font.size
+    names = [a for a in fig.layout.annotations if a.name == "arrow-label"]
+    labels = _sample_labels(fig)
+    assert len(names) == 4 and 0 < len(labels) < 150
+    assert _overlapping_pairs(_pixel_boxes(fig, names + labels, size)) == []
+    assert f"{150 - len(labels)} of 150 sample labels are left out" in _notes(fig)
 
 
 def test_user_text_is_escaped_everywhere_but_labels_map_back_raw():
@@ -397,3 +436,13 @@ def test_arrow_cap_keeps_the_longest_and_says_so():
     assert set(arrows.variables) == expected and arrows.left_out == 10
     assert "Showing the 20 strongest of 30 variables" in arrows.caption
     assert "longest" not in loading_arrows(loadings, names, np.array([2.0, 1.0]), "distance", 3.0).caption
+
+
+def test_the_correlation_biplot_caption_says_correlations_only_for_autoscaled_data(iris):
+    # Gabriel (1971): loading × √eigenvalue is the covariance of a variable with a component's
+    # standardised scores; it is their correlation only when each variable has unit variance.
+    P, lam = iris["loadings"][:, :2], iris["eigenvalues"][:2]
+    autoscaled = loading_arrows(P, iris["variables"], lam, "correlation", 3.0, autoscaled=True).caption
+    raw = loading_arrows(P, iris["variables"], lam, "correlation", 3.0, autoscaled=False).caption
+    assert "correlations with the two components" in autoscaled and "not correlations" not in autoscaled
+    assert "covariance" in raw and "not correlations" in raw

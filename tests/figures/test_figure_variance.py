@@ -74,7 +74,7 @@ def test_tsv_and_csv_format(iris_spectrum):
     lines = variance_table_tsv(rows).splitlines()
     assert len(lines) == 5
     assert lines[0].split("\t") == ["Component", "Eigenvalue", "Explained (%)", "Cumulative (%)",
-                                    "Above mean eigenvalue", "Above broken stick", "Above parallel analysis", "Kept"]
+                                    "Kaiser rule", "Broken stick", "Parallel analysis", "Kept"]
     assert lines[1].split("\t") == ["PC1", "2.9185", "72.96", "72.96", "yes", "yes", "yes", "yes"]
     assert lines[4].split("\t")[:2] == ["PC4", "0.0207"]
     assert lines[4].split("\t")[3] == "100.00"

@@ -352,7 +352,7 @@ def _resolve_id_column(table, recipe: Recipe) -> str | None:
         return table.id_column
     if recipe.id_column not in table.frame.columns:
         raise OrdinateError(
-            f"The sample-ID column '{recipe.id_column}' is not in the data. "
+            f"The label column '{recipe.id_column}' is not in the data. "
             f"Columns are: {_short_list(table.frame.columns)}."
         )
     return recipe.id_column

@@ -16,13 +16,13 @@ __all__ = ["list_main", "delete_main"]
 
 
 def list_main(data_dir: Path) -> int:
-    """Print one line per dataset, oldest first: link code, name, file, size, upload time, saved views."""
+    """Print one line per dataset, oldest first: dataset code, name, file, size, upload time, saved views."""
     services = _services(data_dir)
     records = services.store.datasets()
     if not records:
         print(f"No datasets in {data_dir}.")
         return 0
-    print(f"{'link code':<26} {'uploaded (UTC)':<17} {'size':>9} {'views':>5}  name (file)")
+    print(f"{'dataset code':<26} {'uploaded (UTC)':<17} {'size':>9} {'views':>5}  name (file)")
     for record in records:
         views = len(services.store.views_for_dataset(record.token))
         name = record.display_name if record.display_name == record.filename else \
@@ -40,7 +40,7 @@ def delete_main(data_dir: Path, token: str, *, confirmed: bool) -> int:
     services = _services(data_dir)
     record = services.store.dataset(token)
     if record is None:
-        raise OrdinateError(f"No dataset with the link code '{token}' in {data_dir}; "
+        raise OrdinateError(f"No dataset with the dataset code '{token}' in {data_dir}; "
                             "`ordinate datasets list` shows them.")
     views = services.store.views_for_dataset(token)
     what = (f"dataset '{record.display_name}' ({record.filename}, {_size(record.size_bytes)}, uploaded "

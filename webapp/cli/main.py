@@ -56,6 +56,9 @@ def _parser() -> argparse.ArgumentParser:
     _add_serve(commands)
     _add_report(commands)
     _add_datasets(commands)
+    from webapp.cli.monitor import add_monitor_commands
+
+    add_monitor_commands(commands, _add_data_dir)
     return parser
 
 
@@ -73,19 +76,28 @@ def _add_analyze(commands) -> None:
     cmd.add_argument("--savgol", metavar="WINDOW,ORDER,DERIV",
                      help="Savitzky–Golay filter along the axis after row correction, e.g. 15,2,1: odd window, "
                           "polynomial order, derivative 0-2 (default: no filter)")
-    cmd.add_argument("--scaling", choices=("none", "unit", "pareto", "range"), default="unit")
-    cmd.add_argument("--centring", "--centering", dest="centring", choices=("mean", "none"), default="mean")
+    cmd.add_argument("--scaling", choices=("none", "unit", "pareto", "range"), default="unit",
+                     help="scaling of each variable after centring: unit (autoscaling, default), pareto, range or none")
+    cmd.add_argument("--centring", "--centering", dest="centring", choices=("mean", "none"), default="mean",
+                     help="centring of each variable: mean (default) or none")
     cmd.add_argument("--components", default="auto", help="number of components K, or 'auto' (default)")
-    cmd.add_argument("--id-column", help="column holding sample labels (default: detected)")
-    cmd.add_argument("--group-column", help="column of groups; reported for reference, not used in the fit")
-    cmd.add_argument("--exclude-columns", nargs="+", default=(), metavar="C", help="numeric columns to leave out")
-    cmd.add_argument("--exclude-samples", nargs="+", default=(), metavar="S", help="sample labels to leave out")
+    cmd.add_argument("--label-column", dest="id_column", metavar="COLUMN",
+                     help="the label column: the column holding sample labels (default: detected, else row numbers)")
+    cmd.add_argument("--id-column", dest="id_column", help=argparse.SUPPRESS)  # the former name, still accepted
+    cmd.add_argument("--group-column", metavar="COLUMN",
+                     help="column of groups; reported for reference, not used in the fit (default: none)")
+    cmd.add_argument("--exclude-columns", nargs="+", default=(), metavar="C",
+                     help="numeric columns to leave out of the model (default: none)")
+    cmd.add_argument("--exclude-samples", nargs="+", default=(), metavar="S",
+                     help="samples to leave out, by sample label (default: none)")
     cmd.add_argument("--transform", action="append", default=[], metavar="VAR=T",
-                     help="per-variable transform (log10, ln, log1p, sqrt); repeatable")
-    cmd.add_argument("--missing", choices=("drop", "mean", "iterative"), default="drop")
+                     help="per-variable transform (log10, ln, log1p, sqrt); repeatable (default: none)")
+    cmd.add_argument("--missing", choices=("drop", "mean", "iterative"), default="drop",
+                     help="missing values: drop (skip incomplete samples, default), mean (fill with the mean) "
+                          "or iterative (fill by iterative PCA)")
     cmd.add_argument("--confidence", type=float, default=0.95, help="confidence for T² and Q limits (default 0.95)")
-    cmd.add_argument("--json", type=Path, metavar="OUT", help="write the full results as JSON")
-    cmd.add_argument("--model", type=Path, metavar="OUT", help="save the reference model for `ordinate project`")
+    cmd.add_argument("--json", type=Path, metavar="OUT", help="write the full results as JSON (default: print the table only)")
+    cmd.add_argument("--model", type=Path, metavar="OUT", help="save the reference model for `ordinate project` (default: not saved)")
     cmd.add_argument("--engine", choices=("memory", "dask"), default="memory",
                      help="memory (default): the whole table in this process; dask: long data, part by part on a Dask cluster")
     cmd.add_argument("--scheduler", metavar="ADDRESS",
@@ -100,8 +112,11 @@ def _add_project(commands) -> None:
     cmd.add_argument("model", type=Path, help="model JSON written by `ordinate analyze --model`")
     cmd.add_argument("data", type=Path, help="CSV or TSV file of new samples")
     _add_layout(cmd)
-    cmd.add_argument("--confidence", type=float, help="confidence for limits (default: the model's)")
-    cmd.add_argument("--json", type=Path, metavar="OUT", help="write scores, T² and Q as JSON")
+    cmd.add_argument("--confidence", type=float, help="confidence for T² and Q limits (default: the model's)")
+    cmd.add_argument("--json", type=Path, metavar="OUT", help="write scores, T² and Q as JSON (default: print them only)")
+    cmd.add_argument("--csv", type=Path, metavar="OUT",
+                     help="write per-sample scores, T², Q, both limits and flags as CSV, safe to open in a "
+                          "spreadsheet (default: not written)")
     cmd.set_defaults(run=_run_project)
 
 
@@ -111,24 +126,30 @@ def _add_layout(cmd) -> None:
                           "column naming the variables and the header naming the samples")
 
 
+def _add_data_dir(cmd) -> None:
+    cmd.add_argument("--data-dir", type=Path, default=Path(".ordinate-data"), metavar="DIR",
+                     help="where Ordinate keeps datasets, saved views and its cache (default .ordinate-data)")
+
+
 def _add_serve(commands) -> None:
     cmd = commands.add_parser("serve", help="start the dashboard")
-    cmd.add_argument("--host", default="127.0.0.1")
-    cmd.add_argument("--port", type=int, default=8050)
-    cmd.add_argument("--data-dir", type=Path, default=Path(".ordinate-data"))
+    cmd.add_argument("--host", default="127.0.0.1",
+                     help="address to listen on (default 127.0.0.1: this machine only; a network address needs an access key)")
+    cmd.add_argument("--port", type=int, default=8050, help="port to listen on (default 8050)")
+    _add_data_dir(cmd)
     cmd.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
     cmd.add_argument("--max-upload-mb", type=float, help="largest accepted upload in MB (default 200)")
     cmd.add_argument("--access-key-file", type=Path, metavar="FILE",
                      help="file holding the team access key (default: $ORDINATE_ACCESS_KEY)")
     cmd.add_argument("--no-access-key", action="store_true",
-                     help="serve a network address without an access key (not recommended)")
+                     help="serve a network address without an access key (not recommended; default: a key is required)")
     cmd.set_defaults(run=_run_serve)
 
 
 def _add_report(commands) -> None:
     cmd = commands.add_parser("report", help="write the self-contained HTML report of a saved view")
-    cmd.add_argument("view_id", help="the saved view's link code (the part after /v/)")
-    cmd.add_argument("--data-dir", type=Path, default=Path(".ordinate-data"))
+    cmd.add_argument("view_id", help="the saved view's code (the part of its short link after /v/)")
+    _add_data_dir(cmd)
     cmd.add_argument("--out", type=Path, required=True, metavar="FILE", help="HTML file to write")
     cmd.set_defaults(run=_run_report)
 
@@ -137,12 +158,12 @@ def _add_datasets(commands) -> None:
     cmd = commands.add_parser("datasets", help="list or delete stored datasets (for administrators)")
     actions = cmd.add_subparsers(dest="action", required=True)
     listing = actions.add_parser("list", help="every stored dataset, oldest first")
-    listing.add_argument("--data-dir", type=Path, default=Path(".ordinate-data"))
+    _add_data_dir(listing)
     listing.set_defaults(run=lambda args: _admin().list_main(args.data_dir))
     delete = actions.add_parser("delete", help="delete a dataset with its saved views and cached results")
-    delete.add_argument("token", help="the dataset's link code (the part after ds= in its address)")
-    delete.add_argument("--data-dir", type=Path, default=Path(".ordinate-data"))
-    delete.add_argument("--yes", action="store_true", help="really delete (without it, only say what would go)")
+    delete.add_argument("token", help="the dataset code (the part after ds= in a view link)")
+    _add_data_dir(delete)
+    delete.add_argument("--yes", action="store_true", help="really delete (default: only say what would go)")
     delete.set_defaults(run=lambda args: _admin().delete_main(args.data_dir, args.token, confirmed=args.yes))
 
 
@@ -252,6 +273,12 @@ def _run_project(args) -> int:
     if args.json:
         args.json.write_text(json.dumps(report, indent=1, ensure_ascii=False), encoding="utf-8")
         print(f"Wrote the JSON report to {args.json}.")
+    if args.csv:
+        from webapp.web.exports import projection_frame, to_safe_csv
+
+        confidence = model.confidence if args.confidence is None else args.confidence
+        args.csv.write_text(to_safe_csv(projection_frame(projection, confidence)), encoding="utf-8")
+        print(f"Wrote the CSV table to {args.csv}.")
     return 0
 
 
@@ -344,20 +371,20 @@ def format_variance_table(report: dict) -> str:
     lines = [
         f"{report['n_samples']} samples x {report['n_variables']} variables; "
         f"eigenvalues of the covariance of the preprocessed data (n - 1 denominator).",
-        f"{'PC':>5}  {'eigenvalue':>12}  {'% variance':>10}  {'cumulative %':>12}",
+        f"{'Component':>9}  {'Eigenvalue':>12}  {'Explained (%)':>13}  {'Cumulative (%)':>14}",  # the page's words
     ]
     shown = min(len(report["eigenvalues"]), max(SHOWN_TABLE_ROWS, report["components"]))
     for a in range(shown):
         marker = "  <- K" if a + 1 == report["components"] else ""
         lines.append(
-            f"{'PC' + str(a + 1):>5}  {report['eigenvalues'][a]:>12.4f}  "
-            f"{100 * report['explained_variance_ratio'][a]:>10.2f}  {100 * report['cumulative_explained'][a]:>12.2f}{marker}"
+            f"{'PC' + str(a + 1):>9}  {report['eigenvalues'][a]:>12.4f}  "
+            f"{100 * report['explained_variance_ratio'][a]:>13.2f}  {100 * report['cumulative_explained'][a]:>14.2f}{marker}"
         )
     if shown < len(report["eigenvalues"]):
         lines.append(f"  ... {len(report['eigenvalues']) - shown} more in the JSON output")
     parallel = rules["parallel_analysis"]
     lines.append(
-        f"Components to keep: Kaiser {rules['kaiser']}, broken stick {rules['broken_stick']}, "
+        f"Components to keep: Kaiser rule {rules['kaiser']}, broken stick {rules['broken_stick']}, "
         f"parallel analysis {parallel if parallel is not None else 'not run'}, "
         f"{100 * rules['cumulative_threshold']:.0f} % cumulative {rules['cumulative']}."
     )

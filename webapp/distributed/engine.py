@@ -66,7 +66,7 @@ def source_id_column(source: Source, id_column: str | None) -> str | None:
     """The sample-ID column: the one asked for, else detected on the first rows as the in-memory reader does."""
     if id_column is not None:
         if id_column not in source.columns:
-            raise OrdinateError(f"The sample-ID column '{id_column}' is not in the data.")
+            raise OrdinateError(f"The label column '{id_column}' is not in the data.")
         return id_column
     from webapp.analysis.ingest.roles import find_id_column
 

@@ -122,6 +122,7 @@ class PlacedLabel:
     anchor_x: float
     anchor_y: float
     leader: bool
+    crowded: bool = False  # no free place was found (only with ``skip_crowded``: leave it out)
 
     @property
     def box(self) -> tuple[float, float, float, float]:
@@ -177,6 +178,9 @@ def place_labels(
     origin: tuple[float, float] = (0.0, 0.0),
     obstacles: Sequence[tuple[float, float, float, float]] = (),
     gap: float = 3.0,
+    rings: int = _RINGS,
+    shafts: bool = True,
+    skip_crowded: bool = False,
 ) -> list[PlacedLabel]:
     """Place one label per arrow tip (data units), in the order given; see the module docstring.
 
@@ -184,6 +188,11 @@ def place_labels(
     possible); ``obstacles`` are boxes (x0, y0, x1, y1) in pixels measured
     from the frame's lower-left corner that labels must keep clear of.
     Longer arrows are placed first and get the better slots.
+
+    For labels of points rather than arrows: ``shafts=False`` ignores the lines
+    from the origin, ``rings`` bounds how far a label may move from its point,
+    and ``skip_crowded`` marks a label with no free place as ``crowded`` (its
+    box then reserves nothing) instead of letting it overlap others.
     """
     ax_, ay_ = np.asarray(anchor_x, dtype=np.float64), np.asarray(anchor_y, dtype=np.float64)
     names = [str(t) for t in texts]
@@ -202,7 +211,8 @@ def place_labels(
     order = sorted(range(len(names)), key=lambda i: (-math.hypot(px[i] - ox, py[i] - oy), i))
     placed: list[tuple[float, float, float, float]] = [tuple(b) for b in obstacles]
     centres: dict[int, tuple[float, float]] = {}
-    rings = gap + np.arange(_RINGS, dtype=np.float64) * max(2.0, 0.6 * font_size)
+    ring_gaps = gap + np.arange(max(int(rings), 1), dtype=np.float64) * max(2.0, 0.6 * font_size)
+    crowded: set[int] = set()
 
     for i in order:
         w, h = sizes[i]
@@ -213,10 +223,10 @@ def place_labels(
         angles = heading + turns
         ux, uy = np.cos(angles), np.sin(angles)
         reach = _boundary_distance(ux, uy, hw, hh)
-        r = rings[:, None] + reach[None, :]
+        r = ring_gaps[:, None] + reach[None, :]
         cx = (px[i] + r * ux[None, :]).ravel()
         cy = (py[i] + r * uy[None, :]).ravel()
-        cost = (rings[:, None] + _TURN_PENALTY * np.abs(turns)[None, :]).ravel()
+        cost = (ring_gaps[:, None] + _TURN_PENALTY * np.abs(turns)[None, :]).ravel()
         inside = (cx - hw >= x_lo) & (cx + hw <= x_hi) & (cy - hh >= y_lo) & (cy + hh <= y_hi)
         if placed:
             b = np.asarray(placed, dtype=np.float64)  # (P, 4)
@@ -231,9 +241,15 @@ def place_labels(
         pool = np.flatnonzero(free)
         if pool.size:
             pool = pool[cost[pool] <= cost[pool].min() + 3 * _SHAFT_PENALTY]
-        others = np.arange(len(names)) != i
-        cost[pool] += _SHAFT_PENALTY * _segments_covered(
-            cx[pool], cy[pool], hw, hh, np.full(others.sum(), ox), np.full(others.sum(), oy), px[others], py[others])
+        if shafts:
+            others = np.arange(len(names)) != i
+            cost[pool] += _SHAFT_PENALTY * _segments_covered(
+                cx[pool], cy[pool], hw, hh, np.full(others.sum(), ox), np.full(others.sum(), oy),
+                px[others], py[others])
+        if not free.any() and skip_crowded:
+            crowded.add(i)
+            centres[i] = (float(px[i]), float(py[i]))
+            continue
         if free.any():
             best = int(np.flatnonzero(free)[np.argmin(cost[free])])
         else:
@@ -254,6 +270,6 @@ def place_labels(
             x=frame.x_range[0] + cx / sx, y=frame.y_range[0] + cy / sy,
             width=w / sx, height=h / sy,
             anchor_x=float(ax_[i]), anchor_y=float(ay_[i]),
-            leader=distance > LEADER_GAP,
+            leader=distance > LEADER_GAP and i not in crowded, crowded=i in crowded,
         ))
     return result

@@ -215,7 +215,7 @@ def correlation_circle_figure(
         hovertemplate="<b>%{customdata}</b><br>r with x: %{x:.3f}<br>r with y: %{y:.3f}<extra></extra>",
     ))
     width, height = NOMINAL_PLOT_PX[("circle", presentation)]
-    annotations, leaders = arrow_annotations(
+    annotations, leaders, _ = arrow_annotations(
         [names[i] for i in named], rx[named], ry[named], style,
         PlotFrame(x_range=CIRCLE_RANGE, y_range=CIRCLE_RANGE, width_px=width, height_px=height))
     fig.update_layout(annotations=list(fig.layout.annotations) + annotations,

@@ -48,10 +48,9 @@ from webapp.figures._points import (
     point_trace,
     resolve_groups,
 )
-from webapp.figures.arrow_labels import NOMINAL_PLOT_PX, arrow_annotations, data_range, leader_line
-from webapp.figures.label_placement import PlotFrame, place_labels
+from webapp.figures.arrow_labels import placed_text
 from webapp.figures.palette import ALL_SAMPLES_GROUP, NEUTRAL_COLOUR, GroupStyle
-from webapp.figures.text import count_text, escape_text, level_percent, percent, template_literal
+from webapp.figures.text import count_text, level_percent, percent, template_literal
 from webapp.figures.theme import TEXT_COLOUR, Style, axis_style, new_figure, style_for
 
 if TYPE_CHECKING:  # the figures only read the fields of these results
@@ -111,15 +110,21 @@ class LoadingArrows:
     scaling: str
     factor: float
     left_out: int = 0  # shorter arrows not drawn (see ``max_arrows``)
+    autoscaled: bool = False  # the data were mean-centred and scaled to unit variance
 
     @property
     def caption(self) -> str:
         """One sentence that states the scaling and the stretch factor (plain text)."""
         s = f"{self.factor:.3g}"
-        if self.scaling == "correlation":
+        if self.scaling == "correlation" and self.autoscaled:
             text = (
-                f"Correlation biplot: arrows are variable–component correlations "
-                f"(loading × √eigenvalue; correlations for autoscaled data) × {s}. "
+                f"Correlation biplot: arrows are each variable's correlations with the two components "
+                f"(loading × √eigenvalue) × {s}. Compare arrows with each other, not with the sample positions."
+            )
+        elif self.scaling == "correlation":
+            text = (
+                f"Correlation biplot: arrows are loading × √eigenvalue × {s}, each variable's covariance "
+                f"with the two components (the data are not autoscaled, so these are not correlations). "
                 f"Compare arrows with each other, not with the sample positions."
             )
         else:
@@ -142,6 +147,7 @@ def loading_arrows(
     *,
     fill: float = ARROW_FILL,
     max_arrows: int | None = None,
+    autoscaled: bool = False,
 ) -> LoadingArrows:
     """Biplot arrows for the two plotted components (Gabriel 1971).
 
@@ -157,6 +163,8 @@ def loading_arrows(
         factor s = fill × score_extent / (longest unstretched arrow) is the
         same for all arrows and is recorded in ``factor``.
     max_arrows : keep only this many of the longest arrows (None keeps all).
+    autoscaled : whether the data were mean-centred and scaled to unit variance;
+        only then are correlation-biplot arrows correlations (the caption says which).
     """
     if scaling not in SCALINGS:
         raise OrdinateError(f"The biplot scaling must be one of {', '.join(SCALINGS)}; got {scaling!r}.")
@@ -193,7 +201,7 @@ def loading_arrows(
     dx.setflags(write=False)
     dy.setflags(write=False)
     return LoadingArrows(variables=names, dx=dx, dy=dy, scaling=scaling, factor=factor,
-                         left_out=total - len(names))
+                         left_out=total - len(names), autoscaled=bool(autoscaled))
 
 
 # --------------------------------------------------------------------------
@@ -204,13 +212,14 @@ def ellipse_name(ellipse: "Ellipse") -> str:
     """Legend text of an ellipse, stating its expected and observed coverage.
 
     Sigma ellipse: '2σ ellipse · expected 86.5 % · observed 84.2 % inside'.
-    Hotelling ellipse: 'T² 95 % ellipse · observed 96.0 % inside'.
+    Hotelling ellipse: 'T² 95 % ellipse of these 2 PCs · observed 96.0 % inside' (the
+    diagnostics' T² uses all K components kept; the ellipse only the two plotted).
     """
     observed = ""
     if ellipse.observed_fraction is not None:
         observed = f" · observed {percent(ellipse.observed_fraction)} inside"
     if ellipse.kind == "hotelling":
-        return f"T² {level_percent(ellipse.level)} ellipse{observed}"
+        return f"T² {level_percent(ellipse.level)} ellipse of these 2 PCs{observed}"
     return f"{ellipse.level:g}σ ellipse · expected {percent(ellipse.expected_coverage)}{observed}"
 
 
@@ -404,6 +413,14 @@ def scores_figure(
     if excluded_note:
         notes.append(excluded_note)
 
+    rings = picked_ring(xs, ys, label_array, highlighted, style, batch)
+    colours = np.array([styles[g].colour for g in names], dtype=object) if label_text else None
+    placed = placed_text(xs, ys, label_array if label_text else None, colours, ellipses, arrows, batch, rings,
+                          f"{highlighted}" + (f" · {highlight_note}" if highlight_note else ""), style, presentation)
+    if placed.hidden_labels:
+        notes.append(f"{count_text(placed.hidden_labels)} of {count_text(n)} sample labels are left out where "
+                     "they would overlap; hover to read them.")
+
     fig = new_figure(
         style,
         title=title,
@@ -438,44 +455,18 @@ def scores_figure(
                 hover=[(c, v[index]) for c, v in hover],
                 name=group, legend_group=_legend_group(group), style=styles[group],
                 marker_size=style.marker_size, hover_lines=axis_hover,
-                show_text=label_text, text_size=style.label_size, webgl=webgl,
+                show_text=False, text_size=style.label_size, webgl=webgl,  # labels: annotations, placed
             ))
     traces.extend(_ellipse_traces(ellipses, ellipse_groups, styles, style))
     if batch is not None:
         traces.append(batch_trace(batch, style.marker_size, axis_hover, style.label_size))
-    rings = picked_ring(xs, ys, label_array, highlighted, style, batch)
     traces.extend(rings)
     fig.add_traces(traces)
 
-    # Axes fitted to what is drawn (points, ellipses, arrows, new batch), so the arrow names can
-    # be placed inside them; an equal aspect ratio then widens one of the two ranges.
-    x_range = data_range([xs, *(e.x for e in ellipses), *([arrows.dx] if arrows else []),
-                          *([batch.x] if batch is not None else [])])
-    y_range = data_range([ys, *(e.y for e in ellipses), *([arrows.dy] if arrows else []),
-                          *([batch.y] if batch is not None else [])])
-    if x_range is not None and y_range is not None:
-        fig.update_layout(xaxis_range=list(x_range), yaxis_range=list(y_range))
-        width, height = NOMINAL_PLOT_PX[("scores", presentation)]
-        frame = PlotFrame(x_range=x_range, y_range=y_range, width_px=width, height_px=height)
-        annotations, shapes, taken = [], [], []
-        if rings:  # the picked sample named at its point: the click's feedback where the eye is
-            text = str(highlighted) + (f" · {highlight_note}" if highlight_note else "")
-            x_at, y_at = float(rings[0].x[0]), float(rings[0].y[0])
-            # Bold and framed: estimated a little larger than plain text; kept just outside the ring.
-            (label,) = place_labels([x_at], [y_at], [text], style.label_size * 1.15, frame, origin=(x_at, y_at),
-                                    gap=style.marker_size * 1.5)
-            annotations.append(dict(
-                name="picked-label", x=label.x, y=label.y, xref="x", yref="y", xanchor="center", yanchor="middle",
-                text=f"<b>{escape_text(text)}</b>", showarrow=False, font=dict(size=style.label_size, color=TEXT_COLOUR),
-                bgcolor="rgba(255,255,255,0.92)", bordercolor=TEXT_COLOUR, borderwidth=1, borderpad=2))
-            shapes += [leader_line(label)] if label.leader else []
-            taken.append(frame.pixel_box(label.box))
-        if arrows is not None:
-            arrow_notes, leaders = arrow_annotations(arrows.variables, arrows.dx, arrows.dy, style, frame,
-                                                     obstacles=taken)
-            annotations, shapes = annotations + arrow_notes, shapes + leaders
-        fig.update_layout(annotations=list(fig.layout.annotations) + annotations,
-                          shapes=list(fig.layout.shapes) + shapes)
+    if placed.x_range is not None:
+        fig.update_layout(xaxis_range=list(placed.x_range), yaxis_range=list(placed.y_range),
+                          annotations=list(fig.layout.annotations) + placed.annotations,
+                          shapes=list(fig.layout.shapes) + placed.shapes)
     return fig
 
 
@@ -503,3 +494,4 @@ def _ring_trace(x, y, labels, highlighted: str, style: Style) -> go.Scatter | No
         showlegend=False,
         hoverinfo="skip",
     )
+

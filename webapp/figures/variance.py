@@ -196,15 +196,15 @@ def variance_figure(
 # table
 # --------------------------------------------------------------------------
 
-#: (row key, column header) of the table, in order.
+#: (row key, column header) of the table, in order: the same words on the page, in the CSV and in the CLI.
 TABLE_COLUMNS: tuple[tuple[str, str], ...] = (
     ("pc", "Component"),
     ("eigenvalue", "Eigenvalue"),
     ("percent", "Explained (%)"),
     ("cumulative", "Cumulative (%)"),
-    ("kaiser", "Above mean eigenvalue"),
-    ("broken_stick", "Above broken stick"),
-    ("parallel", "Above parallel analysis"),
+    ("kaiser", "Kaiser rule"),
+    ("broken_stick", "Broken stick"),
+    ("parallel", "Parallel analysis"),
     ("kept", "Kept"),
 )
 

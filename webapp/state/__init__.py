@@ -1,7 +1,7 @@
 """The one definition of a view's state and of its URL form.
 
 Every view of Ordinate is a URL. The query string holds the complete view - the
-dataset's link code and every setting - in readable, versioned parameters, so
+dataset code and every setting - in readable, versioned parameters, so
 that pasting a link into a fresh browser reproduces the identical view. This
 module is the only place that parses, validates, writes and versions that
 query string; nobody else builds or reads view parameters by hand.

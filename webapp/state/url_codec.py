@@ -119,7 +119,7 @@ def _read_token(text: str) -> str | None:
     if text == "":
         return None
     if not _TOKEN_PATTERN.fullmatch(text):
-        raise _Unusable("a link code of 16 to 64 letters, digits, '-' or '_'")
+        raise _Unusable("a code of 16 to 64 letters, digits, '-' or '_'")
     return text
 
 

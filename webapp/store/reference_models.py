@@ -1,13 +1,19 @@
-"""Locked reference models and their uploads of new samples, on disk, shared by every worker.
+"""Locked reference models and the uploads monitored against them, on disk.
 
-STAND-IN written on branch monitor-screens to the monitoring contract while the
-monitor-core branch had not delivered; on a merge conflict take monitor-core's
-version (the page uses only the contract's names).
+Layout under ``<data dir>/reference-models/``:
 
-Index: a diskcache (SQLite) under ``data_dir/reference-models/index``; upload
-files: content-addressed blobs under ``data_dir/reference-models/blobs``,
-written to a temporary file, fsynced and renamed into place before the index
-names them, so an acknowledged upload survives a crash of the process.
+* ``index/``: a diskcache (SQLite) index shared by every worker process:
+  ``("model", code)`` -> the frozen model (its JSON form, the reference
+  period, name, version, fingerprint, manager key); ``("uploads", code)`` ->
+  the list of uploads in upload order.
+* ``files/<sha256>.csv``: the bytes of each uploaded file, written to a
+  temporary file, flushed and fsynced, then renamed into place, before the
+  index entry that names it is committed. A process killed at any moment
+  therefore leaves either no upload or a complete one; a file without an index
+  entry is ignored (and reused when the same bytes arrive again).
+
+A locked model is a frozen copy: it holds its own model JSON, so editing or
+deleting the dataset or the saved view it came from changes nothing here.
 """
 
 from __future__ import annotations
@@ -15,187 +21,257 @@ from __future__ import annotations
 import hashlib
 import hmac
 import os
+import secrets
 import tempfile
 from dataclasses import dataclass
-from datetime import UTC, datetime
+from datetime import datetime, timezone
 from pathlib import Path
 
 import diskcache
-import pandas as pd
+import numpy as np
 
+from webapp.analysis.errors import OrdinateError
 from webapp.analysis.ingest import read_table
-from webapp.analysis.model_io import ReferenceModel, project_table
-from webapp.analysis.monitoring import ReferencePeriod, UploadInfo, monitoring_frame
-from webapp.store.storage import _clean_filename, _clean_text, is_token, new_token
+from webapp.analysis.model_io import ReferenceModel, model_from_dict, model_to_dict, project_table
+from webapp.analysis.monitoring import (
+    ReferencePeriod,
+    UploadInfo,
+    monitoring_frame,
+    reference_period,
+    with_label_column,
+)
+from webapp.store.storage import is_token, new_token
 
-__all__ = ["DEMO_MODEL_SETTING", "LockedModel", "ReferenceModelStore", "seed_demo"]
+__all__ = ["LockedModel", "ReferenceModelStore", "MAX_NAME_CHARS", "MAX_UPLOADED_BY_CHARS"]
 
-DEMO_MODEL_SETTING = "demo-reference-model"
-DEMO_MODEL_NAME = "Oat dessert release model (synthetic demo)"
+MAX_NAME_CHARS = 120
+MAX_UPLOADED_BY_CHARS = 120
+_FRAME_MEMO = 16  # monitoring frames kept per process (a frame is rebuilt when the uploads change)
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class LockedModel:
-    code: str
+    code: str  # the monitoring link's code: /m/<code>
     name: str
     version: int
-    locked_at: str
+    locked_at: str  # ISO 8601, UTC
     source_view_id: str | None
     dataset_token: str | None
-    data_fingerprint: str
+    data_fingerprint: str  # SHA-256 of the reference data's file
     model: ReferenceModel
     reference: ReferencePeriod
     order_column: str | None = None
+    label_column: str | None = None  # the reference data's label column, used for uploads that have it
 
-
-def _now() -> str:
-    return datetime.now(UTC).isoformat(timespec="seconds")
+    @property
+    def title(self) -> str:
+        return f"{self.name} v{self.version}"
 
 
 class ReferenceModelStore:
+    """Locked reference models of one data directory; safe to use from several processes."""
+
     def __init__(self, data_dir: str | os.PathLike):
-        root = Path(data_dir) / "reference-models"
-        self.blob_dir = root / "blobs"
-        self.blob_dir.mkdir(parents=True, exist_ok=True)
-        self.index = diskcache.Cache(str(root / "index"), size_limit=2**40, eviction_policy="none")
-        self._frames: dict = {}  # per-process memo: (code, upload ids) -> frame
+        self.root = Path(data_dir) / "reference-models"
+        self.file_dir = self.root / "files"
+        self.file_dir.mkdir(parents=True, exist_ok=True)
+        self.index = diskcache.Cache(str(self.root / "index"), size_limit=2**40, eviction_policy="none")
+        self._frames: dict[tuple, object] = {}
 
-    # --- models ---------------------------------------------------------------------
+    # --- locking ---------------------------------------------------------------
 
-    def lock(self, model: ReferenceModel, *, name: str, reference: ReferencePeriod, source_view_id=None,
-             dataset_token=None, data_fingerprint: str, order_column=None) -> tuple[LockedModel, str]:
-        name = _clean_text(name, 120)
+    def lock(self, model: ReferenceModel, *, name: str, reference: ReferencePeriod, data_fingerprint: str,
+             source_view_id: str | None = None, dataset_token: str | None = None,
+             order_column: str | None = None, label_column: str | None = None) -> tuple[LockedModel, str]:
+        """Freeze ``model`` under ``name``; returns the locked model and its manager key (given out once).
+
+        The version is one more than the highest version already locked under the
+        same name (names compare without regard to case or surrounding spaces).
+        """
+        name = _clean(name, MAX_NAME_CHARS)
         if not name:
-            from webapp.analysis.errors import OrdinateError
-
-            raise OrdinateError("Give the reference model a name.")
-        key = new_token()
+            raise OrdinateError("Give the reference model a name, for example “Release model”.")
+        code, key = new_token(), secrets.token_urlsafe(24)
+        record = {
+            "name": name,
+            "locked_at": _now(),
+            "source_view_id": source_view_id,
+            "dataset_token": dataset_token,
+            "data_fingerprint": str(data_fingerprint),
+            "order_column": order_column,
+            "label_column": label_column,
+            "manager_key": key,
+            "model": model_to_dict(model),
+            "reference": {
+                "labels": list(reference.labels),
+                "scores": np.asarray(reference.scores, dtype=np.float64).tolist(),
+                "t2": np.asarray(reference.t2, dtype=np.float64).tolist(),
+                "q": np.asarray(reference.q, dtype=np.float64).tolist(),
+            },
+        }
         with self.index.transact():
-            version = 1 + max((m.version for m in self.versions(name)), default=0)
-            locked = LockedModel(new_token(), name, version, _now(), source_view_id, dataset_token,
-                                 data_fingerprint, model, reference, order_column)
-            self.index.set(("model", locked.code), locked)
-            self.index.set(("key", locked.code), hashlib.sha256(key.encode()).hexdigest())
-            self.index.set(("uploads", locked.code), ())
-            self.index.set(("codes",), (*self.index.get(("codes",), ()), locked.code))
-        return locked, key
+            record["version"] = 1 + max((m["version"] for m in self._records() if _same_name(m["name"], name)),
+                                        default=0)
+            self.index[("model", code)] = record
+            self.index[("uploads", code)] = []
+        return self.get(code), key
 
-    def get(self, code) -> LockedModel | None:
-        return self.index.get(("model", code)) if is_token(code) else None
-
-    def all(self) -> list[LockedModel]:
-        return [m for m in (self.get(c) for c in self.index.get(("codes",), ())) if m is not None]
+    def get(self, code: object) -> LockedModel | None:
+        if not is_token(code):
+            return None
+        record = self.index.get(("model", code))
+        return None if record is None else _locked(code, record)
 
     def versions(self, name: str) -> list[LockedModel]:
-        wanted = str(name).casefold()
-        return sorted((m for m in self.all() if m.name.casefold() == wanted), key=lambda m: m.version)
+        """Every model locked under ``name``, oldest version first."""
+        found = [(code, m) for code, m in self._records(with_codes=True) if _same_name(m["name"], name)]
+        return [_locked(code, m) for code, m in sorted(found, key=lambda item: item[1]["version"])]
 
-    def check_manager_key(self, code, key) -> bool:
-        stored = self.index.get(("key", code)) if is_token(code) else None
-        if not stored or not isinstance(key, str) or not key:
-            return False
-        return hmac.compare_digest(stored, hashlib.sha256(key.encode()).hexdigest())
+    def all(self) -> list[LockedModel]:
+        """Every locked model, by name then version."""
+        found = sorted(self._records(with_codes=True), key=lambda item: (item[1]["name"].casefold(), item[1]["version"]))
+        return [_locked(code, m) for code, m in found]
 
-    # --- uploads --------------------------------------------------------------------
+    def check_manager_key(self, code: str, key: object) -> bool:
+        record = self.index.get(("model", code)) if is_token(code) else None
+        return bool(record and isinstance(key, str) and key
+                    and hmac.compare_digest(record["manager_key"].encode(), key.encode()))
 
-    def add_upload(self, code, data: bytes, file_name: str, *, uploaded_by: str = "",
-                   order_column=None) -> UploadInfo:
-        from webapp.analysis.errors import OrdinateError
+    # --- uploads ---------------------------------------------------------------
 
+    def add_upload(self, code: str, data: bytes, file_name: str, *, uploaded_by: str = "",
+                   order_column: str | None = None) -> UploadInfo:
+        """Score a file of new samples against the model and keep it as the newest upload.
+
+        Raises :class:`OrdinateError` (nothing stored) when the file cannot be read
+        or scored, or lacks the model's order column.
+        """
         locked = self.get(code)
         if locked is None:
-            raise OrdinateError("This monitoring link is not known here.")
-        name = _clean_filename(file_name)
-        scored = project_table(locked.model, read_table(data, filename=name))  # raises for a file it cannot score
+            raise OrdinateError("No reference model with this monitoring link is on this server.")
+        file_name = _clean(file_name, 200) or "upload.csv"
+        table = with_label_column(read_table(bytes(data), filename=file_name), locked.label_column)
+        projection = project_table(locked.model, table)
+        column = order_column or locked.order_column
+        if column is not None and column not in table.frame.columns:
+            raise OrdinateError(f"“{file_name}” has no order column '{column}', which this model's uploads use; "
+                                "add it to the file.")
         digest = hashlib.sha256(data).hexdigest()
-        self._write_blob(digest, data)
-        info = UploadInfo(new_token(), name, _clean_text(uploaded_by, 100), _now(), len(scored.sample_labels))
+        self._write_file(digest, data)
+        info = UploadInfo(upload_id=new_token(), file_name=file_name,
+                          uploaded_by=_clean(uploaded_by, MAX_UPLOADED_BY_CHARS), uploaded_at=_now(),
+                          sample_count=len(projection.sample_labels), order_column=column)
         with self.index.transact():
-            self.index.set(("upload", code, info.upload_id), (info, digest))
-            self.index.set(("uploads", code), (*self.index.get(("uploads", code), ()), info.upload_id))
+            if self.index.get(("model", code)) is None:  # removed meanwhile
+                raise OrdinateError("This reference model was removed while the file was being added.")
+            uploads = list(self.index.get(("uploads", code), []))
+            uploads.append({**info.__dict__, "sha256": digest})
+            self.index[("uploads", code)] = uploads
         return info
 
-    def _write_blob(self, digest: str, data: bytes) -> None:
-        path = self.blob_dir / digest
-        if path.exists():
+    def uploads(self, code: str) -> list[UploadInfo]:
+        return [_upload_info(u) for u in self._upload_records(code)]
+
+    def upload_table(self, code: str, upload_id: str):
+        """The ingested table of one upload."""
+        for record in self._upload_records(code):
+            if record["upload_id"] == upload_id:
+                locked = self.get(code)
+                table = read_table(self._file_path(record["sha256"]).read_bytes(), filename=record["file_name"])
+                return with_label_column(table, locked.label_column if locked else None)
+        raise OrdinateError("This upload is not stored here (it may have been removed).")
+
+    def remove_upload(self, code: str, upload_id: str, manager_key: object) -> bool:
+        """Remove one upload; False when the manager key is wrong or the upload is unknown."""
+        if not self.check_manager_key(code, manager_key):
+            return False
+        with self.index.transact():
+            uploads = list(self.index.get(("uploads", code), []))
+            kept = [u for u in uploads if u["upload_id"] != upload_id]
+            if len(kept) == len(uploads):
+                return False
+            self.index[("uploads", code)] = kept
+        return True
+
+    def frame(self, code: str):
+        """The monitoring frame (:func:`webapp.analysis.monitoring.monitoring_frame`) of every upload."""
+        locked = self.get(code)
+        if locked is None:
+            raise OrdinateError("No reference model with this monitoring link is on this server.")
+        records = self._upload_records(code)
+        key = (code, tuple(r["upload_id"] for r in records))
+        if key not in self._frames:
+            pairs = [(_upload_info(r), read_table(self._file_path(r["sha256"]).read_bytes(), filename=r["file_name"]))
+                     for r in records]
+            # Production order by the order column only when every upload names the same one.
+            columns = {r.get("order_column") for r in records}
+            column = columns.pop() if len(columns) == 1 else None
+            if len(self._frames) >= _FRAME_MEMO:
+                self._frames.pop(next(iter(self._frames)))
+            self._frames[key] = monitoring_frame(locked.model, pairs, column, locked.label_column)
+        return self._frames[key].copy()
+
+    # --- internals -------------------------------------------------------------
+
+    def _records(self, *, with_codes: bool = False):
+        for key in list(self.index.iterkeys()):
+            if isinstance(key, tuple) and key[0] == "model":
+                record = self.index.get(key)
+                if record is not None:
+                    yield (key[1], record) if with_codes else record
+
+    def _upload_records(self, code: str) -> list[dict]:
+        return list(self.index.get(("uploads", code), [])) if is_token(code) else []
+
+    def _file_path(self, digest: str) -> Path:
+        return self.file_dir / f"{digest}.csv"
+
+    def _write_file(self, digest: str, data: bytes) -> None:
+        target = self._file_path(digest)
+        if target.exists() and target.stat().st_size == len(data):
             return
-        fd, temp = tempfile.mkstemp(dir=self.blob_dir, prefix=".upload-")
+        fd, temp = tempfile.mkstemp(dir=self.file_dir, prefix=".upload-", suffix=".part")
         try:
             with os.fdopen(fd, "wb") as handle:
                 handle.write(data)
                 handle.flush()
                 os.fsync(handle.fileno())
-            os.replace(temp, path)
-            directory = os.open(self.blob_dir, os.O_RDONLY)
-            try:
-                os.fsync(directory)
-            finally:
-                os.close(directory)
-        finally:
+            os.replace(temp, target)
+        except BaseException:
             if os.path.exists(temp):
                 os.unlink(temp)
-
-    def uploads(self, code) -> list[UploadInfo]:
-        ids = self.index.get(("uploads", code), ()) if is_token(code) else ()
-        entries = [self.index.get(("upload", code, upload_id)) for upload_id in ids]
-        return [entry[0] for entry in entries if entry]
-
-    def upload_table(self, code, upload_id):
-        entry = self.index.get(("upload", code, upload_id)) if is_token(code) else None
-        if entry is None:
-            from webapp.analysis.errors import OrdinateError
-
-            raise OrdinateError("This upload is no longer stored; reload the page.")
-        info, digest = entry
-        return read_table((self.blob_dir / digest).read_bytes(), filename=info.file_name)
-
-    def remove_upload(self, code, upload_id, manager_key) -> bool:
-        if not self.check_manager_key(code, manager_key):
-            return False
-        with self.index.transact():
-            ids = self.index.get(("uploads", code), ())
-            if upload_id not in ids:
-                return False
-            self.index.set(("uploads", code), tuple(i for i in ids if i != upload_id))
-            self.index.delete(("upload", code, upload_id))
-        return True
-
-    def frame(self, code) -> pd.DataFrame:
-        locked = self.get(code)
-        uploads = self.uploads(code)
-        memo_key = (code, tuple(u.upload_id for u in uploads))
-        if memo_key not in self._frames:
-            pairs = [(info, self.upload_table(code, info.upload_id)) for info in uploads]
-            self._frames = {memo_key: monitoring_frame(locked.model, pairs, locked.order_column)}
-        return self._frames[memo_key].copy()
+            raise
+        directory = os.open(self.file_dir, os.O_RDONLY)
+        try:
+            os.fsync(directory)  # the rename itself survives a crash too
+        finally:
+            os.close(directory)
 
 
-def seed_demo(services, *, demo_token: str | None, upload_files=()) -> LockedModel | None:
-    """Lock the demo reference model from the demo dataset (``demo_token``) once per data directory,
-    then append ``upload_files`` as its uploads."""
-    from webapp.analysis.model_io import model_from_analysis
-    from webapp.analysis.monitoring import reference_period
-    from webapp.analysis.pipeline import analyse
-    from webapp.analysis.recipe import Recipe
+def _locked(code: str, record: dict) -> LockedModel:
+    model = model_from_dict(record["model"])
+    ref = record["reference"]
+    reference = reference_period(model, ref["labels"], np.asarray(ref["scores"], dtype=np.float64),
+                                 ref["t2"], ref["q"])
+    return LockedModel(code=code, name=record["name"], version=int(record["version"]), locked_at=record["locked_at"],
+                       source_view_id=record["source_view_id"], dataset_token=record["dataset_token"],
+                       data_fingerprint=record["data_fingerprint"], model=model, reference=reference,
+                       order_column=record.get("order_column"), label_column=record.get("label_column"))
 
-    existing = services.store.get_setting(DEMO_MODEL_SETTING)
-    if existing and services.reference_models.get(existing):
-        return services.reference_models.get(existing)
-    token = demo_token
-    record = services.store.dataset(token) if token else None
-    if record is None:
-        return None
-    table = services.compute.table(record)
-    analysis = analyse(table, Recipe(missing="mean"), components="auto")
-    model = model_from_analysis(analysis)
-    fitted = analysis.fitted
-    reference = reference_period(model, fitted.prepared.sample_labels, fitted.pca.scores,
-                                 analysis.diagnostics.t2, analysis.diagnostics.q)
-    locked, _ = services.reference_models.lock(model, name=DEMO_MODEL_NAME, reference=reference,
-                                               dataset_token=token, data_fingerprint=record.content_hash)
-    if not services.store.add_if_absent(DEMO_MODEL_SETTING, locked.code):
-        return services.reference_models.get(services.store.get_setting(DEMO_MODEL_SETTING))
-    for path in upload_files:
-        services.reference_models.add_upload(locked.code, Path(path).read_bytes(), Path(path).name,
-                                             uploaded_by="demo (synthetic)")
-    return locked
+
+def _upload_info(record: dict) -> UploadInfo:
+    return UploadInfo(upload_id=record["upload_id"], file_name=record["file_name"], uploaded_by=record["uploaded_by"],
+                      uploaded_at=record["uploaded_at"], sample_count=int(record["sample_count"]),
+                      order_column=record.get("order_column"))
+
+
+def _same_name(a: str, b: str) -> bool:
+    return a.strip().casefold() == b.strip().casefold()
+
+
+def _clean(text: object, limit: int) -> str:
+    return "".join(ch for ch in str(text or "") if ch.isprintable()).strip()[:limit]
+
+
+def _now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="seconds")

@@ -76,7 +76,11 @@ class SavedView:
 
 
 def new_token() -> str:
-    return secrets.token_urlsafe(TOKEN_BYTES)
+    """An unguessable code that never starts with '-' (a shell command would read it as an option)."""
+    while True:
+        token = secrets.token_urlsafe(TOKEN_BYTES)
+        if not token.startswith("-"):
+            return token
 
 
 def is_token(value: object) -> bool:

@@ -9,6 +9,8 @@ from __future__ import annotations
 import flask
 from dash import html
 
+from webapp.figures.text import level_percent
+from webapp.figures.variance import TABLE_COLUMNS
 from webapp.ui.layout import BATCH_REMOVE
 
 
@@ -28,7 +30,7 @@ def notice_list(notices, errors) -> list:
 
 def not_found_card() -> html.Div:
     return html.Div(className="card not-found-card", children=[
-        html.H2("This dataset link is not known here"),
+        html.H2("This view link is not known here"),
         html.P(
             "The link may be mistyped or cut short, or the dataset was deleted by its owner. "
             "Ask the colleague who sent it for a fresh link, or load a CSV file of your own."
@@ -42,8 +44,8 @@ def start_card() -> html.Div:
         html.H2("Load a CSV file to begin"),
         html.P(
             "Drop a CSV or TSV file of samples (rows) by measured variables (columns) on “Load a CSV” above, "
-            "or choose one. Ordinate detects the delimiter, decimal mark, sample labels and group columns, "
-            "and opens the analysis at once; the address bar then holds a link to it for your colleagues."
+            "or choose one. Ordinate detects the delimiter, decimal mark, label column and group columns, "
+            "and opens the analysis at once; the address bar then holds its view link for your colleagues."
         ),
     ])
 
@@ -54,7 +56,7 @@ def dataset_summary(summary: dict) -> list:
         ("Samples (rows)", summary.get("rows")),
         ("Numeric variables", summary.get("numeric")),
         ("Text columns", summary.get("text")),
-        ("Sample labels from", summary.get("id_column") or "row numbers"),
+        ("Label column", summary.get("id_column") or "none (row numbers)"),
         ("Possible groups", ", ".join(summary.get("groups", ())) or "none found"),
         ("Missing numeric cells", summary.get("missing")),
         ("Read as", summary.get("format")),
@@ -106,10 +108,7 @@ def excluded_chips(labels, dropped_for_gaps=()) -> list:
 
 def variance_table(rows: list[dict]) -> html.Table:
     head = html.Thead(html.Tr([
-        html.Th("PC"), html.Th("Eigenvalue"), html.Th("% var."), html.Th("Cum. %"),
-        html.Th("Kaiser", title="Eigenvalue above the mean eigenvalue"),
-        html.Th("Stick", title="Broken stick: share above the broken-stick expectation"),
-        html.Th("Parallel", title="Eigenvalue above the 95th percentile of permuted data"),
+        html.Th(VARIANCE_HEADERS[key], title=_RULE_MEANINGS.get(key)) for key, _ in TABLE_COLUMNS if key != "kept"
     ]))
     body = html.Tbody([
         html.Tr(className="kept" if row["kept"] else "", children=[
@@ -124,6 +123,15 @@ def variance_table(rows: list[dict]) -> html.Table:
         for row in rows
     ])
     return html.Table([head, body], className="variance-table", id="variance-table-element")
+
+
+VARIANCE_HEADERS = dict(TABLE_COLUMNS)
+# What a tick in a rule's column means, on hover.
+_RULE_MEANINGS = {
+    "kaiser": "✓: eigenvalue above the mean eigenvalue",
+    "broken_stick": "✓: share of the variance above the broken-stick expectation",
+    "parallel": "✓: eigenvalue above the 95th percentile of permuted data",
+}
 
 
 def _verdict(value) -> str:
@@ -179,28 +187,28 @@ def batch_panel(batch, confidence: float, problem: str | None = None):
             return None
         return html.Div([
             html.Div(className="batch-head", children=[
-                html.H3("New batch"),
-                html.Button("Stop scoring this batch", id=BATCH_REMOVE, n_clicks=0, className="small-button"),
+                html.H3("New samples"),
+                html.Button("Stop scoring these samples", id=BATCH_REMOVE, n_clicks=0, className="small-button"),
             ]),
             html.P(problem, className="notice notice-error"),
         ])
     rows, n = batch.rows(), len(batch.labels)
-    level = f"{confidence * 100:g} %"
+    level = level_percent(confidence)
     p = batch.projection
     return html.Div([
         html.Div(className="batch-head", children=[
-            html.H3(f"New batch: {batch.name}"),
-            html.Button("Stop scoring this batch", id=BATCH_REMOVE, n_clicks=0, className="small-button"),
+            html.H3(f"New samples: {batch.name}"),
+            html.Button("Stop scoring these samples", id=BATCH_REMOVE, n_clicks=0, className="small-button"),
         ]),
         html.P(f"{n} sample(s) scored against this model without refitting it; {len(rows)} beyond a {level} "
                f"limit for new samples (T² {p.t2_limit:.3g}, Q {p.q_limit:.3g}). They are the dark stars on the "
                "scores plot and on T² against Q."),
         html.P(className="caution", children=(
             "The T² limit for new samples is wider than for the model's own samples (Tracy, Young & Mason "
-            "1992). A new batch is not released or rejected on these charts alone: follow your validated "
+            "1992). No batch is released or rejected on these charts alone: follow your validated "
             "local procedures.")),
         *flagged_table(rows, heading=f"{len(rows)} new sample(s) above a limit",
-                       empty_text="No sample of the new batch is above either limit for new samples."),
+                       empty_text="No new sample is above either limit for new samples."),
     ])
 
 
@@ -213,10 +221,10 @@ def provenance_block(provenance: dict) -> html.Dl:
 
 def manage_box(link: str) -> html.Div:
     return html.Div([
-        html.H3("Private manage link"),
+        html.H3("Private manager link"),
         html.P("You uploaded this dataset from this browser. This link renames or deletes it with all its "
                "saved views; keep it to yourself, do not share it like a view link."),
-        html.A("Manage this dataset", href=link, className="small-button", target="_blank", rel="noopener"),
+        html.A("Open the manager page", href=link, className="small-button", target="_blank", rel="noopener"),
     ])
 
 
@@ -230,7 +238,7 @@ EXPORTS = (
 
 
 def export_link_list(query: str, saved_view: str | None, *, batch: bool = False) -> list:
-    exports = EXPORTS + ((("batch.csv", "New batch: scores, T² and Q (CSV)"),) if batch else ())
+    exports = EXPORTS + ((("batch.csv", "New samples: scores, T² and Q (CSV)"),) if batch else ())
     links = [html.A(label, href=f"/export/{name}?{query}", download="", className="small-button")
              for name, label in exports]
     if saved_view:

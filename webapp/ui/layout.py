@@ -10,6 +10,7 @@ from __future__ import annotations
 from dash import dcc, html
 
 from webapp.figures import GRAPH_CONFIG
+from webapp.figures.text import level_percent
 from webapp.state import BIPLOT_SCALINGS, CENTRINGS, MISSING_POLICIES, PAGE_ARROWS, SCALINGS, TRANSFORMS
 
 URL = "url"
@@ -124,7 +125,7 @@ SLIDE_FIGURE_WORDS = {
 }
 ARROW_LIMIT_CHOICES = (3, 5, 10, 15, 20, 30, 50, 100)
 _WORDS = {
-    "drop": "Leave samples out",
+    "drop": "Skip incomplete samples",
     "mean": "Fill with the mean",
     "iterative": "Fill by iterative PCA",
     "unit": "Unit variance (autoscaling)",
@@ -204,9 +205,9 @@ def _top_bar(config) -> html.Header:
             *([html.Form(html.Button("Sign out", className="bar-button"), action="/sign-out", method="POST")]
               if config.access_key else []),
             html.Div(className="share", children=[
-                html.Label([html.Span("Link to this view", className="visually-hidden"),
+                html.Label([html.Span("View link", className="visually-hidden"),
                             dcc.Input(id=LINK_TEXT, readOnly=True, className="link-text")]),
-                dcc.Clipboard(id=COPY_LINK, target_id=LINK_TEXT, title="Copy the link to this view",
+                dcc.Clipboard(id=COPY_LINK, target_id=LINK_TEXT, title="Copy the view link",
                               className="copy-button"),
             ]),
         ],
@@ -253,11 +254,11 @@ def _present_bar() -> html.Nav:
 def _recipe_rail() -> html.Aside:
     return html.Aside(
         className="recipe-rail",
-        **{"aria-label": "Preprocessing recipe"},
+        **{"aria-label": "Preprocessing"},
         children=[
-            html.H2("Recipe"),
+            html.H2("Preprocessing"),
             html.P(id=RECIPE_WORDS, className="recipe-words"),
-            _field("Sample labels", dcc.Dropdown(id=ID_COLUMN, clearable=False)),
+            _field("Label column", dcc.Dropdown(id=ID_COLUMN, clearable=False)),
             _field("Colour by", dcc.Dropdown(id=COLOUR_BY, clearable=False)),
             html.Fieldset(className="field", children=[
                 html.Legend("Variables in the model"),
@@ -316,7 +317,7 @@ def _cards() -> html.Main:
             html.H2("Provenance"), html.Div(id=PROVENANCE),
             html.H2("Downloads", className="downloads-title"),
             html.P("CSV files open safely in spreadsheet programs (text that could run as a formula is escaped). "
-                   "The model file scores new batches with the command ordinate project.", className="quiet"),
+                   "The model file scores new samples with the command ordinate project.", className="quiet"),
             html.Div(id=EXPORT_LINKS, className="export-links"),
         ]),
     ])
@@ -380,9 +381,9 @@ def _diagnostics_card() -> html.Section:
             html.H2("Outlier diagnostics"),
             html.Div(className="toolbar", children=[
                 _inline("confidence", dcc.Dropdown(id=CONFIDENCE, clearable=False, className="conf-select",
-                                                   options=[{"label": f"{c * 100:g} %", "value": c} for c in CONFIDENCE_CHOICES])),
+                                                   options=[{"label": level_percent(c), "value": c} for c in CONFIDENCE_CHOICES])),
                 # assets/upload.js sends the chosen file as a batch to score against this model.
-                html.Button("Score a new batch…", id=BATCH_BUTTON, className="small-button", n_clicks=0,
+                html.Button("Score new samples…", id=BATCH_BUTTON, className="small-button", n_clicks=0,
                             title="Choose a CSV file with the same variables: its samples are placed on this "
                                   "model's scores plot and on T² against Q, without refitting the model."),
             ]),

@@ -19,37 +19,9 @@ from webapp.analysis.errors import OrdinateError
 from webapp.state import parse_query
 from webapp.ui import layout as L
 from webapp.ui.components import base_url
+from webapp.ui.reference_locking import lock_saved_view
 
 log = logging.getLogger("ordinate")
-
-
-def lock_saved_view(services, view_id: str, name: str):
-    """Lock the model of saved view ``view_id`` under ``name``: returns (LockedModel, manager key).
-
-    The model is the saved view's fit at its K and confidence (as its model JSON
-    download); the reference period is the fit's own samples with their scores,
-    T² and Q; the fingerprint is the SHA-256 of the dataset's bytes.
-    """
-    from webapp.analysis.model_io import model_from_analysis
-    from webapp.analysis.monitoring import reference_period
-    from webapp.analysis.pipeline import Analysis
-    from webapp.ui.view_model import resolve, view_diagnostics
-
-    saved = services.store.view(view_id)
-    if saved is None:
-        raise OrdinateError("This saved view is not known here, so nothing was locked.")
-    state, _ = parse_query(saved.query)
-    state = state.replace(dataset=saved.dataset_token, saved_view=saved.view_id, present=False, follow=None,
-                          batch=None, picked=None)
-    resolved = resolve(services, state)
-    diagnostics = view_diagnostics(resolved, state)
-    model = model_from_analysis(Analysis(resolved.fitted, diagnostics))
-    fitted = resolved.fitted
-    reference = reference_period(model, fitted.prepared.sample_labels, fitted.pca.scores, diagnostics.t2,
-                                 diagnostics.q)
-    return services.reference_models.lock(model, name=name, reference=reference, source_view_id=saved.view_id,
-                                          dataset_token=saved.dataset_token,
-                                          data_fingerprint=resolved.record.content_hash)
 
 
 def lock_result(locked, manager_key: str, host: str) -> list:

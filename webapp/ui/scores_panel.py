@@ -84,6 +84,7 @@ def scores_panel(state: ViewState, fitted, table, groups, pc_x: int, pc_y: int, 
             pca.eigenvalues[[pc_x - 1, pc_y - 1]], state.biplot_scaling,
             float(np.max(np.abs(np.concatenate([x, y])))) if x.size else 1.0,
             max_arrows=state.arrows_shown,  # the strongest N; the caption says so
+            autoscaled=state.centring == "mean" and state.scaling == "unit",
         )
     hover = {v: table.frame[v].to_numpy()[prepared.row_positions] for v in prepared.variables[:HOVER_VARIABLES]}
     return scores_figure(
@@ -106,14 +107,14 @@ def score_batch(services, record, fitted, diagnostics) -> tuple[BatchScores | No
         model = model_from_analysis(Analysis(fitted, diagnostics))
         projection = project_table(model, table, diagnostics.confidence)
     except OrdinateError as error:
-        return None, (f"The new batch “{name}” cannot be scored against this model: {error}",)
-    notices = tuple(f"New batch “{name}”: {warning}" for warning in (*table.warnings, *projection.warnings))
+        return None, (f"The new samples of “{name}” cannot be scored against this model: {error}",)
+    notices = tuple(f"New samples “{name}”: {warning}" for warning in (*table.warnings, *projection.warnings))
     return BatchScores(name, projection), notices
 
 
 def batch_legend(batch: BatchScores) -> str:
     # Short, so the legend beside T² against Q leaves the plot its width; the panel names the file.
-    return f"New batch ({len(batch.labels)})"
+    return f"New samples ({len(batch.labels)})"
 
 
 def sigma_ellipses(state: ViewState, x, y, groups) -> tuple[list, list]:

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 from webapp import __version__
 from webapp.analysis import ENGINE_VERSION
+from webapp.figures.text import level_percent, percent
 from webapp.ui.resolution import Resolved
 
 
@@ -35,7 +36,7 @@ def advice_text(advice, components: int, automatic: bool, *, pending: bool = Fal
     text = (
         f"Recommended K = {advice.recommended} by {advice.rule}. Other rules: Kaiser {advice.kaiser}, "
         f"broken stick {advice.broken_stick}, parallel analysis {parallel}, "
-        f"{advice.cumulative_threshold:.0%} cumulative {advice.cumulative}. "
+        f"{percent(advice.cumulative_threshold, 0)} cumulative {advice.cumulative}. "
         f"T² and Q use K = {components} ({chosen})."
     )
     if pending and automatic:
@@ -50,9 +51,9 @@ def provenance(resolved: Resolved, diagnostics, colour_column) -> dict:
         "Fingerprint (SHA-256)": record.content_hash,
         "Samples used": f"{fitted.pca.n_samples} of {resolved.table.n_rows}",
         "Variables used": f"{fitted.pca.n_variables}: {', '.join(fitted.prepared.variables)}",
-        "Recipe": " ".join(resolved.recipe.describe()),
+        "Preprocessing": " ".join(resolved.recipe.describe()),
         "Solver": fitted.pca.solver,
-        "Components for T² and Q": f"{diagnostics.components} at {diagnostics.confidence:.1%} confidence",
+        "Components for T² and Q": f"{diagnostics.components} at {level_percent(diagnostics.confidence)} confidence",
         "Q limit": diagnostics.q_limit_method,
         "Coloured by": colour_column or "nothing",
         "Engine": f"Ordinate {__version__}, engine {ENGINE_VERSION}",

@@ -63,7 +63,7 @@ from webapp.ui.variable_panels import (  # noqa: F401  (part of this module's in
 )
 
 MAX_TABLE_COMPONENTS = 20
-UNKNOWN_BATCH = "The new batch named in this link is not known here (it may have been deleted); it is not shown."
+UNKNOWN_BATCH = "The new samples named in this link are not known here (their file may have been deleted); they are not shown."
 
 
 @dataclass(frozen=True)

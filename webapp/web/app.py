@@ -75,15 +75,14 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
 
 
 def _seed_demo_monitoring(services: Services) -> None:
-    """The demo's locked reference model with its later uploads (once per data directory)."""
+    """The demo's locked reference model with its weekly uploads (demo_data/monitoring), once per data directory."""
     demo = services.config.demo_dataset
     if demo is None or not Path(demo).exists():
         return
-    from webapp.store.reference_models import seed_demo
+    from webapp.ui.reference_locking import seed_demo_monitoring
 
-    uploads = [path for path in (Path(demo).parent / "synthetic_oat_dessert_new_batches.csv",) if path.exists()]
     try:
-        seed_demo(services, demo_token=services.store.get_setting(DEMO_SETTING), upload_files=uploads)
+        seed_demo_monitoring(services, Path(demo).parent / "monitoring")
     except OrdinateError:
         log.exception("the demo reference model could not be locked; the demo runs without it")
 

@@ -62,6 +62,7 @@ __all__ = [
     "diagnostics_frame",
     "export_csv",
     "export_model_json",
+    "projection_frame",
     "register_export_routes",
 ]
 
@@ -88,10 +89,10 @@ _FORMULA_STARTS = frozenset("=+-@\uff1d\uff0b\uff0d\uff20")
 _QUOTE = "'"
 
 _NOT_FOUND_MESSAGE = (
-    "No dataset with this link code is on this server. It may have been deleted; "
+    "No dataset with this dataset code is on this server. It may have been deleted; "
     "ask the person who shared the link for a new one."
 )
-_NO_VIEW_MESSAGE = "No saved view with this link code is on this server. It may have been deleted."
+_NO_VIEW_MESSAGE = "No saved view with this short link is on this server. It may have been deleted."
 _UNKNOWN_KIND_MESSAGE = "There is no such download. Available: " + ", ".join(EXPORT_FILES) + "."
 _SERVER_PROBLEM_MESSAGE = (
     "The download could not be prepared because of a problem on the server. "
@@ -290,11 +291,17 @@ def batch_frame(services, resolved, state: ViewState) -> pd.DataFrame:
 
     record = services.store.dataset(state.batch) if state.batch else None
     if record is None:
-        raise OrdinateError("This view scores no new batch, or the batch is no longer stored.")
+        raise OrdinateError("This view scores no new samples, or their file is no longer stored.")
     batch, notices = score_batch(services, record, resolved.fitted, view_diagnostics(resolved, state))
     if batch is None:
         raise OrdinateError(notices[0])
-    p, n = batch.projection, len(batch.labels)
+    return projection_frame(batch.projection, state.confidence)
+
+
+def projection_frame(p, confidence: float) -> pd.DataFrame:
+    """New samples scored against a model (a ``model_io.Projection``): the table of ``batch.csv``
+    and of ``ordinate project --csv``: scores, T², Q, both limits (T² for new samples) and flags."""
+    n = len(p.sample_labels)
     columns: dict[str, Any] = {"Sample": pd.Series(list(p.sample_labels), dtype=object)}
     for a, name in enumerate(_pc_names(p.scores.shape[1])):
         columns[name] = np.asarray(p.scores[:, a], dtype=np.float64)
@@ -306,7 +313,7 @@ def batch_frame(services, resolved, state: ViewState) -> pd.DataFrame:
         "Above T² limit": ["yes" if v > p.t2_limit else "no" for v in p.t2],
         "Above Q limit": ["yes" if v > p.q_limit else "no" for v in p.q],
         "K": np.full(n, int(p.scores.shape[1]), dtype=np.int64),
-        "Confidence": np.full(n, float(state.confidence)),
+        "Confidence": np.full(n, float(confidence)),
     })
     return pd.DataFrame(columns)
 

@@ -54,7 +54,7 @@ _MAX_TITLE_CHARS = 1000  # the store keeps 200; this bounds what is even looked 
 
 CONFIRM_LABEL = "I understand this cannot be undone"
 NOT_FOUND_TEXT = (
-    "This management link does not work. It may be mistyped or incomplete, or the dataset "
+    "This manager link does not work. It may be mistyped or incomplete, or the dataset "
     "may have been deleted. Use the complete link you received after uploading."
 )
 CONFIRM_MISSING_TEXT = f"Nothing was deleted: tick \u201c{CONFIRM_LABEL}\u201d first."
@@ -66,7 +66,7 @@ OnDelete = Callable[[DatasetRecord], None]
 
 
 def manage_link(record: DatasetRecord) -> str:
-    """The private management link (relative URL) for ``record``; show it to the uploader only."""
+    """The private manager link (relative URL) for ``record``; show it to the uploader only."""
     return f"{MANAGE_PREFIX}/{quote(record.token, safe='')}?key={quote(record.manage_key, safe='')}"
 
 
@@ -230,9 +230,9 @@ def _manage_page(store: DataStore, token: str, key: str, *, notice: str | None =
         messages += f'<p class="problem" role="alert">{_e(problem)}</p>'
     body = f"""
 <p class="wordmark">Ordinate</p>
-<h1>Manage \u201c{_e(record.display_name)}\u201d</h1>
-<p class="private">This page is private: anyone with its link can rename or delete this dataset.
-Share the analysis links, never this one.</p>
+<h1>Manager page of \u201c{_e(record.display_name)}\u201d</h1>
+<p class="private">This manager page is private: anyone with its link can rename or delete this dataset.
+Share view links and short links, never this one.</p>
 {messages}
 <section><h2>Dataset</h2>
 <table>
@@ -255,7 +255,7 @@ and to its views stops working.</p>
 <label class="check"><input type="checkbox" name="confirm" value="yes" required> {_e(CONFIRM_LABEL)}</label>
 <button type="submit" class="delete">Delete this dataset</button></form></section>
 """
-    return _html(_page(f"Ordinate \u2014 manage {record.display_name}", body), status)
+    return _html(_page(f"Ordinate \u2014 manager page of {record.display_name}", body), status)
 
 
 def _gone_page(record: DatasetRecord, view_count: int, *, bytes_kept: bool, cache_purged: bool) -> flask.Response:

@@ -36,6 +36,7 @@ from webapp.analysis.errors import OrdinateError
 from webapp.web.filenames import dataset_stem, safe_filename
 from webapp.figures import GRAPH_CONFIG, variance_table_tsv
 from webapp.figures.diagnostics import CAUTION
+from webapp.figures.text import level_percent
 from webapp.figures.theme import FONT_FAMILY, MUTED_TEXT_COLOUR, TEXT_COLOUR
 from webapp.state import parse_query
 from webapp.store.storage import SavedView
@@ -254,7 +255,7 @@ def _variance_table(rows) -> str:
 def _diagnostics_summary(view, diagnostics) -> str:
     n = diagnostics.t2.size
     text = (
-        f"<p>K = {diagnostics.components} at {diagnostics.confidence:.1%} confidence: "
+        f"<p>K = {diagnostics.components} at {level_percent(diagnostics.confidence)} confidence: "
         f"T² limit {diagnostics.t2_limit:.4g}, Q limit {diagnostics.q_limit:.4g} by {_e(diagnostics.q_limit_method)}. "
         f"{len(view.flagged)} of {n} samples are above a limit.</p>"
     )
@@ -263,10 +264,10 @@ def _diagnostics_summary(view, diagnostics) -> str:
     if batch is not None:
         rows, p = batch.rows(), batch.projection
         text += (
-            f"<p>New batch “{_e(batch.name)}” (the stars): {len(batch.labels)} samples scored against this model "
+            f"<p>New samples “{_e(batch.name)}” (the stars): {len(batch.labels)} samples scored against this model "
             f"without refitting it; {len(rows)} above a limit for new samples (T² {p.t2_limit:.4g}, the wider "
             f"limit for new samples of Tracy, Young &amp; Mason 1992; Q {p.q_limit:.4g}).</p>"
-            + _flag_table(rows, "New-batch samples above a limit, furthest first", "new batch")
+            + _flag_table(rows, "New samples above a limit, furthest first", "new samples")
         )
     return text
 
