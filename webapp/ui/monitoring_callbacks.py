@@ -199,7 +199,7 @@ def hits_table(rows: list[dict]) -> list:
     body = [html.Tr([html.Td(r["rule"]), html.Td(r["statistic"]),
                      html.Td(str(r["first"]) if r["first"] == r["last"] else f"{r['first']}–{r['last']}",
                              className="num"),
-                     html.Td(r["samples"]), html.Td(r["uploads"])]) for r in rows]
+                     html.Td(r["samples"]), html.Td(r["uploads"], className="wrap")]) for r in rows]
     return [html.Table([html.Thead(head), html.Tbody(body)], className="summary-table monitor-table")]
 
 
@@ -210,7 +210,7 @@ def uploads_table(rows: list[dict], *, removable: bool) -> list:
     head = html.Tr([html.Th(t) for t in titles] + ([html.Th("")] if removable else []))
     body = []
     for r in rows:
-        cells = [html.Td(r["file_name"]), html.Td(r["uploaded_by"] or "–"),
+        cells = [html.Td(r["file_name"], className="wrap"), html.Td(r["uploaded_by"] or "–", className="wrap"),
                  html.Td(r["uploaded_at"][:19].replace("T", " ")), html.Td(str(r["samples"]), className="num"),
                  html.Td(r["positions"], className="num"), html.Td(str(r["flagged"]), className="num")]
         if removable:
