@@ -12,7 +12,8 @@
  *
  *   <div id="upload-zone" role="button" tabindex="0"        (or a <label>)
  *        data-limit-mb="50"                 size limit in MB (1 MB = 1024*1024 bytes)
- *        data-upload-url="/api/upload">     optional; default "/api/upload"
+ *        data-upload-url="/api/upload"      optional; default "/api/upload"
+ *        data-received-note="...">          optional; said after "Received “file”" (default: where to manage it)
  *     ...instructions text...
  *   </div>
  *
@@ -311,9 +312,11 @@
                 if (published) {
                     // A success message fades (it would otherwise sit over the page's top edge);
                     // an error stays until the next file.
+                    var after = zone && zone.getAttribute("data-received-note");
                     showStatus("", false);
                     showNote("Received “" + file.name + "” (" + formatSize(file.size) + ")." +
-                        (purpose === "batch" ? "" : " Its manager link is under “About this data”."),
+                        (after !== null && after !== undefined ? (after ? " " + after : "") :
+                            (purpose === "batch" ? "" : " Its manager link is under “About this data”.")),
                         SUCCESS_MS);
                 } else {
                     showStatus("The file was received, but the page is not ready to show it. Reload the page and add the file again.", true);

@@ -111,6 +111,11 @@ FOLLOW_REVISION = "follow-revision"  # the presenter's revision an attendee's pa
 FOLLOW_POLL = "follow-poll"
 FOLLOW_POLL_MS = 400
 FOLLOW_BANNER = "follow-banner"
+LOCK_PANEL = "lock-panel"
+LOCK_NAME = "lock-name"
+LOCK_CONFIRM = "lock-confirm"
+LOCK_RESULT = "lock-result"
+LOCKED_LIST = "locked-list"
 
 CONFIDENCE_CHOICES = (0.9, 0.95, 0.99, 0.999)
 SLIDE_FIGURE_WORDS = {
@@ -284,12 +289,33 @@ def _recipe_rail() -> html.Aside:
     )
 
 
+def _lock_panel() -> html.Section:
+    """"Lock as reference model" under an opened saved view (callbacks in webapp.ui.locking)."""
+    return html.Section(id=LOCK_PANEL, className="card lock-panel", hidden=True, children=[
+        html.Details(children=[
+            html.Summary("Lock as reference model…"),
+            html.P("Freeze this saved view's model (preprocessing, components kept, confidence, limits and the "
+                   "fingerprint of its data) so that new samples can be scored against it over time on a "
+                   "monitoring page. Later edits of the dataset or of views do not change a locked model; "
+                   "locking again under the same name makes the next version.", className="quiet"),
+            html.Div(className="inline-field", children=[
+                dcc.Input(id=LOCK_NAME, type="text", maxLength=120, className="text-input",
+                          placeholder="Name, e.g. Oat dessert release model"),
+                html.Button("Lock", id=LOCK_CONFIRM, n_clicks=0, className="primary-button"),
+            ]),
+            html.Div(id=LOCK_RESULT, role="status"),
+        ]),
+    ])
+
+
 def _cards() -> html.Main:
     return html.Main(className="cards", children=[
         html.Section(id=SAVED_BANNER, className="card saved-banner", hidden=True),
+        _lock_panel(),
         _scores_card(), _variance_card(), _diagnostics_card(), _loadings_card(), S.spectra_card(),
         html.Section(className="card saved-card", children=[
             html.H2("Saved views of this dataset"), html.Div(id=SAVED_LIST),
+            html.H3("Reference models locked from this dataset", className="locked-head"), html.Div(id=LOCKED_LIST),
         ]),
         html.Section(className="card provenance-card", children=[
             html.H2("Provenance"), html.Div(id=PROVENANCE),

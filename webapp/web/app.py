@@ -26,8 +26,10 @@ from webapp.state import ViewState, parse_query, to_query
 from webapp.store.services import DEMO_SETTING, Services, create_services, ensure_demo, forget_results_if_unused
 from webapp.ui.callbacks import register_callbacks
 from webapp.ui.long_view import register_long_view
+from webapp.ui.locking import register_locking
 from webapp.ui.layout import build_layout
 from webapp.ui.view_model import recipe_for, table_summary
+from webapp.web.monitoring import register_monitoring
 from webapp.web.upload import register_upload_route
 
 ASSETS = REPOSITORY_ROOT / "assets"
@@ -55,11 +57,15 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
     app.layout = build_layout(config)
     register_callbacks(app, services)
     register_long_view(app, services)
+    register_locking(app, services)
+    # /m/<code>: the monitoring pages, a small Dash app of their own on the same server.
+    register_monitoring(app, services, assets_folder=str(ASSETS))
     register_content_security_policy(app)
     register_upload_route(app.server, services.store, limit_bytes=config.max_upload_bytes,
                           inspect=lambda record: _inspect_upload(services, record),
                           on_discard=lambda record: forget_results_if_unused(services, record))
     ensure_demo(services)
+    _seed_demo_monitoring(services)
     # Plotly reads its property schema when the first figure of a process is made
     # (about 0.1 s); pay that now rather than in the first user's first view.
     go.Figure()
@@ -68,6 +74,19 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
     _register_follow_links(app, services)
     app.server.config["ordinate.services"] = services
     return app
+
+
+def _seed_demo_monitoring(services: Services) -> None:
+    """The demo's locked reference model with its weekly uploads (demo_data/monitoring), once per data directory."""
+    demo = services.config.demo_dataset
+    if demo is None or not Path(demo).exists():
+        return
+    from webapp.ui.reference_locking import seed_demo_monitoring
+
+    try:
+        seed_demo_monitoring(services, Path(demo).parent / "monitoring")
+    except OrdinateError:
+        log.exception("the demo reference model could not be locked; the demo runs without it")
 
 
 def _inspect_upload(services: Services, record) -> dict:
