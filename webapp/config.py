@@ -9,6 +9,8 @@ from pathlib import Path
 REPOSITORY_ROOT = Path(__file__).resolve().parent.parent
 DEMO_DATASET = REPOSITORY_ROOT / "demo_data" / "synthetic_oat_dessert_batches.csv"
 DEMO_TITLE = "Oat dessert batches, four sites (synthetic demo data)"
+#: Weekly uploads of the demo's locked reference model (demo_data/generate_monitoring.py).
+DEMO_MONITORING = REPOSITORY_ROOT / "demo_data" / "monitoring"
 
 
 @dataclass(frozen=True)
@@ -16,6 +18,7 @@ class AppConfig:
     data_dir: Path = Path(".ordinate-data")
     max_upload_mb: float = 200.0
     demo_dataset: Path | None = DEMO_DATASET
+    demo_monitoring: Path | None = DEMO_MONITORING  # None: no demo reference model
     title: str = "Ordinate"
     # Access control (see docs/deployment.md): a shared key that team members
     # enter once; None with require_access_key False means open (loopback only).

@@ -12,7 +12,8 @@ from webapp.config import AppConfig
 
 @pytest.fixture
 def app(tmp_path):
-    return create_app(AppConfig(data_dir=tmp_path / "data"))
+    # No demo reference model: these tests count the fits their own views cause.
+    return create_app(AppConfig(data_dir=tmp_path / "data", demo_monitoring=None))
 
 
 @pytest.fixture

@@ -78,13 +78,13 @@ def create_app(config: AppConfig | None = None) -> dash.Dash:
 
 def _seed_demo_monitoring(services: Services) -> None:
     """The demo's locked reference model with its weekly uploads (demo_data/monitoring), once per data directory."""
-    demo = services.config.demo_dataset
-    if demo is None or not Path(demo).exists():
+    demo, uploads = services.config.demo_dataset, services.config.demo_monitoring
+    if demo is None or uploads is None or not Path(demo).exists():
         return
     from webapp.ui.reference_locking import seed_demo_monitoring
 
     try:
-        seed_demo_monitoring(services, Path(demo).parent / "monitoring")
+        seed_demo_monitoring(services, Path(uploads))
     except OrdinateError:
         log.exception("the demo reference model could not be locked; the demo runs without it")
 
