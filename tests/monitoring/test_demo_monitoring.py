@@ -101,3 +101,13 @@ def test_a_seed_cut_off_half_way_is_finished_by_the_next_start_and_a_busy_seed_i
     assert seed_demo_monitoring(services) == locked.code  # the default folder: demo_data/monitoring
     assert [u.file_name for u in services.reference_models.uploads(locked.code)] == [p.name for p in files]
     assert len(services.reference_models.all()) == 1
+
+
+def test_the_app_starts_with_the_demo_reference_model_and_without_it_when_told(tmp_path):
+    from webapp.web.app import create_app
+
+    services = create_app(AppConfig(data_dir=tmp_path / "a")).server.config["ordinate.services"]
+    (locked,) = services.reference_models.all()
+    assert locked.name == DEMO_MODEL_NAME and len(services.reference_models.uploads(locked.code)) == 10
+    bare = create_app(AppConfig(data_dir=tmp_path / "b", demo_monitoring=None)).server.config["ordinate.services"]
+    assert bare.reference_models.all() == []
