@@ -301,3 +301,30 @@ def test_advice_rejects_data_that_do_not_match_the_eigenvalues(iris_correlation)
     # The autoscaled data are accepted.
     advice = advise_components(eigenvalues, 4.0, 4, X=_autoscale(raw), n_permutations=50)
     assert advice.parallel is not None and 1 <= advice.recommended <= 4
+
+
+def test_parallel_analysis_eigenvalues_of_a_wide_matrix_come_from_the_small_gram_matrix():
+    # Same non-zero eigenvalues of XᵀX and XXᵀ (common practice; any linear-algebra text); checked
+    # against numpy's eigvalsh of the covariance, and no p x p product is formed when p > n.
+    import numpy as np
+
+    from webapp.analysis import selection
+
+    rng = np.random.default_rng(3)
+    X = rng.normal(size=(30, 400))
+    X -= X.mean(axis=0)
+    expected = np.sort(np.linalg.eigvalsh(X.T @ X / 29))[::-1][:5]
+    shapes = []
+    real_eigh = selection.scipy.linalg.eigh
+
+    def spy(matrix, **kwargs):
+        shapes.append(matrix.shape)
+        return real_eigh(matrix, **kwargs)
+
+    selection.scipy.linalg.eigh, saved = spy, real_eigh
+    try:
+        values = selection._default_eigenvalues(X, 5)
+    finally:
+        selection.scipy.linalg.eigh = saved
+    np.testing.assert_allclose(values, expected, rtol=1e-10)
+    assert shapes == [(30, 30)]

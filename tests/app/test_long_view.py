@@ -11,16 +11,14 @@ Parquet parts.
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 import pytest
-from sklearn.datasets import load_breast_cancer
 
+from tests.long_parts import register_cancer_parts
 from webapp.analysis.ingest import read_table
 from webapp.analysis.pipeline import diagnose, fit_recipe
 from webapp.analysis.recipe import Recipe
 from webapp.distributed.cluster import dask_client
 from webapp.distributed.density import BINS, SHOWN_POINTS
-from webapp.distributed.sources import fingerprint, open_source
 from webapp.figures import flagged_samples
 from webapp.state import ViewState
 from webapp.ui import long_view
@@ -36,17 +34,9 @@ def cluster():
 
 @pytest.fixture
 def long_dataset(tmp_path, services, cluster):
-    frame = load_breast_cancer(as_frame=True).frame.drop(columns="target")
-    frame.insert(0, "sample", [f"b{i:03d}" for i in range(len(frame))])
-    folder = tmp_path / "parts"
-    folder.mkdir()
-    for i, rows in enumerate(np.array_split(np.arange(len(frame)), 3)):
-        frame.iloc[rows].to_parquet(folder / f"part-{i}.parquet", index=False)
+    record, frame = register_cancer_parts(services, tmp_path / "parts", cluster.scheduler.address)
     whole = tmp_path / "whole.csv"
     frame.to_csv(whole, index=False)
-    digest, size = fingerprint(open_source(folder))
-    record = services.store.add_server_side(str(folder), digest, size, name="cancer parts",
-                                            scheduler=cluster.scheduler.address)
     return record, whole
 
 

@@ -9,14 +9,12 @@ page is checked to show them.
 
 from __future__ import annotations
 
-import numpy as np
 import pytest
-from sklearn.datasets import load_breast_cancer
 
 from tests.browser.test_dashboard import _text, _wait_for
+from tests.long_parts import register_cancer_parts
 from webapp.config import AppConfig
 from webapp.distributed.cluster import dask_client
-from webapp.distributed.sources import fingerprint, open_source
 from webapp.web.app import create_app
 
 pytestmark = pytest.mark.browser
@@ -35,17 +33,9 @@ def cluster():
 
 
 def test_a_server_side_dataset_shows_progress_then_densities(dash_duo, tmp_path, cluster):
-    frame = load_breast_cancer(as_frame=True).frame.drop(columns="target")
-    frame.insert(0, "sample", [f"b{i:03d}" for i in range(len(frame))])
-    folder = tmp_path / "parts"
-    folder.mkdir()
-    for i, rows in enumerate(np.array_split(np.arange(len(frame)), 3)):
-        frame.iloc[rows].to_parquet(folder / f"part-{i}.parquet", index=False)
     app = create_app(AppConfig(data_dir=tmp_path / "data", demo_dataset=None))
     services = app.server.config["ordinate.services"]
-    digest, size = fingerprint(open_source(folder))
-    record = services.store.add_server_side(str(folder), digest, size, name="cancer parts",
-                                            scheduler=cluster.scheduler.address)
+    record, _ = register_cancer_parts(services, tmp_path / "parts", cluster.scheduler.address)
     dash_duo.start_server(app)
     dash_duo.driver.get(f"{dash_duo.server_url}/?ds={record.token}&conf=0.8")
     seen = _wait_for(lambda: (lambda t: ("Dask cluster" in t or "Long data" in t) and t)(_text(dash_duo.driver, "body")))

@@ -52,11 +52,6 @@ __all__ = [
 
 EigenFunction = Callable[[np.ndarray, int], np.ndarray]
 
-# The default eigen-solver forms X^T X (p x p) when p is at most this or at
-# most n, otherwise the n x n Gram matrix X X^T: both share their non-zero
-# eigenvalues and the smaller one is cheaper.
-_COVARIANCE_MAX_P = 500
-
 # Descending order is checked up to roundoff of the eigensolver.
 _ORDER_RTOL = 1e-10
 
@@ -259,10 +254,8 @@ def cumulative_count(explained_ratio, threshold: float = 0.80) -> int:
 def _default_eigenvalues(X: np.ndarray, k: int) -> np.ndarray:
     """Top-k covariance eigenvalues (n - 1 denominator) of a centred X, descending."""
     n, p = X.shape
-    if p <= _COVARIANCE_MAX_P or p <= n:
-        cross = X.T @ X
-    else:
-        cross = X @ X.T  # same non-zero eigenvalues, smaller matrix
+    # Never a p x p matrix when p > n: X Xᵀ has the same non-zero eigenvalues and is smaller.
+    cross = X.T @ X if p <= n else X @ X.T
     size = cross.shape[0]
     top = scipy.linalg.eigh(
         cross, eigvals_only=True, subset_by_index=[size - k, size - 1], check_finite=False

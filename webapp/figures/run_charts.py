@@ -249,19 +249,8 @@ def statistic_run_chart(frame, reference, statistic: str, *, confidence: float, 
     traces += _picked_trace(frame, values, pick, style)
     for trace in traces:
         trace.name = _legend_name(trace, what, level)
-    fig = new_figure(
-        style,
-        title=f"{STATISTICS[statistic]} in production order",
-        note_width=HALF_NOTE_WIDTH,
-        xaxis=axis_style(_X_TITLE, zero_line=False),
-        yaxis=axis_style(what),
-        shapes=_frame_shapes(frame, reference, show_reference, style),
-        legend=_LEGEND_BELOW,
-        margin=dict(b=104),
-    )
-    fig.add_traces(traces)
-    _apply_range(fig, frame, reference, show_reference, window)
-    return fig
+    return _run_figure(style, f"{STATISTICS[statistic]} in production order", what, traces,
+                       frame, reference, show_reference, window)
 
 
 _LEGEND = {
@@ -343,12 +332,18 @@ def scores_run_chart(frame, reference, component: int, *, band: float = 3.0,
     for trace in traces:
         if trace.meta == "band upper":
             trace.name = f"±{k_text} sd of the reference"
+    return _run_figure(style, f"Scores on {name} in production order", f"{name} score", traces,
+                       frame, reference, show_reference, window)
+
+
+def _run_figure(style, title, y_title, traces, frame, reference, show_reference, window) -> go.Figure:
+    """A run chart: production order across, the reference period and upload boundaries as shapes."""
     fig = new_figure(
         style,
-        title=f"Scores on {name} in production order",
+        title=title,
         note_width=HALF_NOTE_WIDTH,
         xaxis=axis_style(_X_TITLE, zero_line=False),
-        yaxis=axis_style(f"{name} score"),
+        yaxis=axis_style(y_title),
         shapes=_frame_shapes(frame, reference, show_reference, style),
         legend=_LEGEND_BELOW,
         margin=dict(b=104),
