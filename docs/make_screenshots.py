@@ -68,6 +68,17 @@ def main() -> None:
         _shot(browser, f"http://127.0.0.1:{PORT}/v/{first.view_id}", "saved-view.png", (1280, 800))
         presenting = ViewState(dataset=token, present=True, slide=2)
         _shot(browser, base + to_query(presenting), "presentation.png", (1600, 900))
+        labelled = demo.replace(labels=True, arrows=True, hotelling=False)
+        _shot(browser, base + to_query(labelled), "sample-labels.png", (1280, 900), element=".scores-card")
+        (model,) = services.reference_models.all()
+        _shot(browser, f"http://127.0.0.1:{PORT}/m/{model.code}", "monitoring-1280.png", (1280, 800),
+              ready=".run-graph .main-svg")
+        _shot(browser, f"http://127.0.0.1:{PORT}/m/{model.code}", "monitoring-full.png", (1280, 800),
+              ready=".run-graph .main-svg", full_page=True)
+        spectra_file = ROOT / "demo_data" / "synthetic_lentil_flour_nir.csv"
+        spectra = services.store.add_bytes(spectra_file.read_bytes(), spectra_file.name).token
+        wide = f"http://127.0.0.1:{PORT}/?v=1&ds={spectra}&rowc=snv"
+        _shot(browser, wide, "spectra-full-1280.png", (1280, 800), full_page=True)
     finally:
         browser.quit()
         server.shutdown()
@@ -82,13 +93,14 @@ def _browser():
     return webdriver.Chrome(options=options)
 
 
-def _shot(browser, url, name, size, *, element=None, full_page=False):
+def _shot(browser, url, name, size, *, element=None, full_page=False, ready=None):
     browser.set_window_size(*size)
     browser.get(url)
-    WebDriverWait(browser, 60).until(EC.presence_of_element_located((By.CSS_SELECTOR, "#scores-graph .main-svg, .not-found-card")))
-    # A view is drawn before parallel analysis ends; wait for its verdicts.
-    WebDriverWait(browser, 60).until(lambda b: b.find_elements(By.CSS_SELECTOR, ".not-found-card") or "still running"
-                                     not in b.find_element(By.ID, "component-advice").text)
+    WebDriverWait(browser, 60).until(EC.presence_of_element_located(
+        (By.CSS_SELECTOR, ready or "#scores-graph .main-svg, .not-found-card")))
+    if ready is None:  # a view is drawn before parallel analysis ends; wait for its verdicts
+        WebDriverWait(browser, 120).until(lambda b: b.find_elements(By.CSS_SELECTOR, ".not-found-card")
+                                          or "still running" not in b.find_element(By.ID, "component-advice").text)
     time.sleep(2.5)  # let every graph finish drawing
     if element:
         target = browser.find_element(By.CSS_SELECTOR, element)
