@@ -28,7 +28,6 @@ import hashlib
 import hmac
 import os
 import secrets
-import tempfile
 import threading
 from dataclasses import dataclass
 from datetime import datetime, timezone
@@ -49,7 +48,7 @@ from webapp.analysis.monitoring import (
     score_upload,
     with_label_column,
 )
-from webapp.store.storage import is_token, new_token
+from webapp.store.storage import TemporaryFile, is_token, new_token, replace_durably
 
 __all__ = ["LockedModel", "ReferenceModelStore", "MAX_NAME_CHARS", "MAX_UPLOADED_BY_CHARS"]
 
@@ -294,23 +293,9 @@ class ReferenceModelStore:
         target = self._file_path(digest)
         if target.exists() and target.stat().st_size == len(data):
             return
-        fd, temp = tempfile.mkstemp(dir=self.file_dir, prefix=".upload-", suffix=".part")
-        try:
-            with os.fdopen(fd, "wb") as handle:
-                handle.write(data)
-                handle.flush()
-                os.fsync(handle.fileno())
-            os.replace(temp, target)
-        except BaseException:
-            if os.path.exists(temp):
-                os.unlink(temp)
-            raise
-        directory = os.open(self.file_dir, os.O_RDONLY)
-        try:
-            os.fsync(directory)  # the rename itself survives a crash too
-        finally:
-            os.close(directory)
-
+        with TemporaryFile(self.file_dir) as (handle, temp):
+            handle.write(data)
+        replace_durably(temp, target)  # the index names the file only after this
 
 def _locked(code: str, record: dict) -> LockedModel:
     model = model_from_dict(record["model"])

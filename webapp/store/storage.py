@@ -157,7 +157,7 @@ class DataStore:
         if target.exists():
             os.unlink(temp_path)
         else:
-            os.replace(temp_path, target)
+            replace_durably(temp_path, target)
 
     def _register(self, content_hash: str, filename: str, size: int, title: str) -> DatasetRecord:
         record = DatasetRecord(new_token(), content_hash, _clean_filename(filename), size, time.time(),
@@ -305,10 +305,24 @@ class DataStore:
         return self.blob_dir / f"{content_hash}.bin"
 
     def _temporary_file(self):
-        return _TemporaryFile(self.blob_dir)
+        return TemporaryFile(self.blob_dir)
 
 
-class _TemporaryFile:
+def replace_durably(temp_path: str, target: Path) -> None:
+    """Rename a flushed, fsynced temporary file into place, then fsync the directory.
+
+    After this returns, a crash or power loss leaves the complete file under its
+    name; before, at worst a stray temporary file.
+    """
+    os.replace(temp_path, target)
+    directory = os.open(Path(target).parent, os.O_RDONLY)
+    try:
+        os.fsync(directory)
+    finally:
+        os.close(directory)
+
+
+class TemporaryFile:
     """A temp file in the blob directory (same file system, so rename is atomic)."""
 
     def __init__(self, directory: Path):
