@@ -9,6 +9,7 @@ tests/app/test_spectral_view.py; here the page is checked to show them.
 import json
 import os
 import re
+import time
 from pathlib import Path
 
 import pytest
@@ -28,6 +29,15 @@ const t = plot._fullData[0];
 return JSON.stringify([t.type || '', t.mode || '', Array.from(t.x || []).map(v => v === null || isNaN(v) ? null : v),
                        Array.from(t.y || []).map(v => v === null || isNaN(v) ? null : v)]);
 """
+
+
+def _settled(read, pause: float = 1.0):
+    """The value read twice, ``pause`` seconds apart, when both reads agree (else None)."""
+    first = read()
+    if not first:
+        return None
+    time.sleep(pause)
+    return first if read() == first else None
 
 
 @pytest.fixture
@@ -105,13 +115,15 @@ def test_a_500_by_8000_upload_with_a_range_and_snv_chosen_on_the_page_reopens_id
     dash_duo.driver.execute_script("arguments[0].scrollIntoView({block: 'center'});", snv)
     snv.click()
     wait(lambda: "rowc=snv" in dash_duo.driver.current_url and "rng=1200-1800" in dash_duo.driver.current_url)
-    drawn = wait(lambda: (lambda d: d and json.loads(d)[2][0] == 1200 and d)(
-        dash_duo.driver.execute_script(LOADINGS_JS)))
+    # The range alone already starts the loadings at 1200: wait for SNV to be applied
+    # (the step order says so) and for the figure to stop changing before reading it.
+    order = wait(lambda: (lambda text: "SNV" in text and text)(_text(dash_duo.driver, "#step-order")))
+    assert order.index("range 1200–1800") < order.index("SNV") < order.index("mean-centring")
+    drawn = wait(lambda: _settled(lambda: (lambda d: d and json.loads(d)[2][0] == 1200 and d)(
+        dash_duo.driver.execute_script(LOADINGS_JS))))
     kind, mode, x, _y = json.loads(drawn)
     assert kind == "scatter" and mode == "lines" and x[-1] == 1800 and None not in x
-    order = wait(lambda: _text(dash_duo.driver, "#step-order"))
-    assert order.index("range 1200–1800") < order.index("SNV") < order.index("mean-centring")
-    scores = wait(lambda: dash_duo.driver.execute_script(SCORES_JS))
+    scores = wait(lambda: _settled(lambda: dash_duo.driver.execute_script(SCORES_JS)))
     wait(lambda: "spectra shown" in _text(dash_duo.driver, "#spectra-graph"))
     url = dash_duo.driver.current_url
     dash_duo.find_element("#dataset-details summary").click()
@@ -127,8 +139,10 @@ def test_a_500_by_8000_upload_with_a_range_and_snv_chosen_on_the_page_reopens_id
     try:
         fresh.set_window_size(1280, 800)
         fresh.get(url)
-        again = wait(lambda: (lambda d: d and json.loads(d)[2][0] == 1200 and d)(fresh.execute_script(LOADINGS_JS)))
+        assert "SNV" in wait(lambda: _text(fresh, "#step-order"))
+        again = wait(lambda: _settled(lambda: (lambda d: d and json.loads(d)[2][0] == 1200 and d)(
+            fresh.execute_script(LOADINGS_JS))))
         assert json.loads(again) == json.loads(drawn)
-        assert json.loads(wait(lambda: fresh.execute_script(SCORES_JS))) == json.loads(scores)
+        assert json.loads(wait(lambda: _settled(lambda: fresh.execute_script(SCORES_JS)))) == json.loads(scores)
     finally:
         fresh.quit()
