@@ -105,7 +105,22 @@ def block_moments(X: np.ndarray, shift: np.ndarray | None = None) -> Moments:
 SHIFTED_PRODUCT_LIMIT = 4.0
 
 
-def block_moments_in_place(X: np.ndarray, shift: np.ndarray | None = None) -> Moments:
+def column_extremes(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Minimum and maximum of each column (NaN where a column holds a NaN).
+
+    Column by column: the second reduction reads a column that the first just
+    brought into the cache, so a column-ordered block is read from memory once.
+    """
+    p = X.shape[1]
+    minimum, maximum = np.empty(p), np.empty(p)
+    for j in range(p):
+        column = X[:, j]
+        minimum[j], maximum[j] = np.minimum.reduce(column), np.maximum.reduce(column)
+    return minimum, maximum
+
+
+def block_moments_in_place(X: np.ndarray, shift: np.ndarray | None = None,
+                           extremes: tuple[np.ndarray, np.ndarray] | None = None) -> Moments:
     """:func:`block_moments` of a private float64 block, which it overwrites (for speed).
 
     With y = x - s (s the common shift, subtracted in place) and m the block's
@@ -117,6 +132,11 @@ def block_moments_in_place(X: np.ndarray, shift: np.ndarray | None = None) -> Mo
     place; otherwise (a shift far from this block's mean, a constant column)
     the block is centred exactly and the product taken again (Chan, Golub &
     LeVeque 1983, section 4, on shifted data).
+
+    ``extremes`` (the columns' minima and maxima, when the caller already has
+    them) saves two reductions. The minima, maxima, shift and sums are taken
+    column by column, each column once from memory (a column-ordered block
+    makes each column contiguous); only the product reads the whole block again.
     """
     if X.ndim != 2 or X.dtype != np.float64:
         raise OrdinateError("Moments need a float64 table of samples (rows) by variables (columns).")
@@ -125,10 +145,16 @@ def block_moments_in_place(X: np.ndarray, shift: np.ndarray | None = None) -> Mo
         shift = np.asarray(shift, dtype=float)
     if n == 0:
         return empty_moments(p, shift)
-    minimum, maximum = X.min(axis=0), X.max(axis=0)
-    if shift is not None:
-        X -= shift
-    mean = np.add.reduce(X, axis=0) / n
+    minimum, maximum = (np.empty(p), np.empty(p)) if extremes is None else (extremes[0].copy(), extremes[1].copy())
+    sums = np.empty(p)
+    for j in range(p):
+        column = X[:, j]
+        if extremes is None:
+            minimum[j], maximum[j] = np.minimum.reduce(column), np.maximum.reduce(column)
+        if shift is not None:
+            np.subtract(column, shift[j], out=column)
+        sums[j] = np.add.reduce(column)
+    mean = sums / n
     cross = X.T @ X
     cross -= n * np.outer(mean, mean)
     variance = np.diag(cross) / n

@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 
 from webapp.analysis.errors import OrdinateError
-from webapp.analysis.moments import Moments, block_moments_in_place, merge_moments
+from webapp.analysis.moments import Moments, block_moments_in_place, column_extremes, merge_moments
 from webapp.analysis.pca import PCAFit
 from webapp.analysis.pipeline import sample_statistics
 from webapp.analysis.transforms import TRANSFORM_FUNCTIONS, apply_transforms
@@ -62,6 +62,8 @@ class Prepared:
     first_dropped: tuple[tuple[int, int, str | None], ...]
     filled: int
     excluded_found: frozenset[str] = frozenset()
+    # Minima and maxima of ``values`` when known without another pass (no row dropped or filled).
+    extremes: tuple[np.ndarray, np.ndarray] | None = None
 
 
 def prepare_piece(frame: pd.DataFrame, index: int, path: str, plan: Plan, *, need_labels: bool) -> Prepared:
@@ -78,8 +80,9 @@ def prepare_piece(frame: pd.DataFrame, index: int, path: str, plan: Plan, *, nee
     if not keep.all():
         values, labels = values[keep], labels[keep]
     _transform(values, plan, path, rows)
-    # One summing pass finds whether anything is missing (a NaN makes its column's sum NaN).
-    missing = np.isnan(values) if np.isnan(np.add.reduce(values, axis=0)).any() else None
+    extremes = column_extremes(values)
+    # A NaN makes its column's minimum NaN: the extremes tell whether anything is missing.
+    missing = np.isnan(values) if np.isnan(extremes[0]).any() else None
     dropped, first, filled = 0, (), 0
     if missing is not None and missing.any():
         if plan.missing == "drop":
@@ -93,8 +96,9 @@ def prepare_piece(frame: pd.DataFrame, index: int, path: str, plan: Plan, *, nee
             labels = None if labels is None else labels[~bad]
         elif plan.fill is not None:
             filled = int(missing.sum())
-            values = np.where(missing, plan.fill, values)
-    return Prepared(values, labels, rows, n, dropped, first, filled, found)
+            np.copyto(values, np.broadcast_to(plan.fill, values.shape), where=missing)  # in place: stays column-ordered
+    unchanged = dropped == 0 and filled == 0
+    return Prepared(values, labels, rows, n, dropped, first, filled, found, extremes if unchanged else None)
 
 
 def shift_from_head(frame: pd.DataFrame, plan: Plan) -> np.ndarray:
@@ -151,7 +155,7 @@ def summarise(frame: pd.DataFrame, index: int, path: str, plan: Plan) -> Summary
               else np.full(chosen.size, None, dtype=object))
     sample = prepared.values[chosen]  # a copy, taken before the moments overwrite the piece
     return Summary(
-        moments=block_moments_in_place(prepared.values, plan.shift),
+        moments=block_moments_in_place(prepared.values, plan.shift, prepared.extremes),
         read_rows={index: prepared.read_rows},
         dropped=prepared.dropped,
         first_dropped=prepared.first_dropped,

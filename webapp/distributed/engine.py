@@ -187,11 +187,12 @@ def fit_long(source: Source, recipe: Recipe, client, *, seed: int = 0, sample_ro
     spread = np.sqrt(np.maximum(np.diag(moments.cross)[kept], 0.0) / max(n - 1, 1)) / scale[kept]
 
     centre, scale = centre[kept], scale[kept]
+    clock.lap("eigendecomposition")
     order = np.lexsort((summary.sample_where[:, 1], summary.sample_where[:, 0]))
     sample = (summary.sample_values[order][:, kept] - centre) / scale
     advice = sample_advice(pca, sample, seed=seed,
                            fallback=advise_components(pca.eigenvalues, pca.total_variance, pca.n_variables))
-    clock.lap("eigendecomposition_and_advice")
+    clock.lap("parallel_analysis")
     kept_variables = tuple(v for v, z in zip(variables, zero) if not z)
     preprocessor = Preprocessor(kept_variables, tuple(t for t, z in zip(plan.transforms, zero) if not z),
                                 centre, scale, recipe)
