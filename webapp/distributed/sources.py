@@ -176,17 +176,29 @@ def _float_matrix(numbers) -> np.ndarray:
     and the moments work in place), unless it were to share memory with Arrow's
     buffers (which may map the file), when it is copied.
     """
-    matrix = numbers.to_pandas(split_blocks=False).to_numpy()
+    # Without the schema's pandas metadata, which would bring back the columns' pandas types (Int64, ...).
+    matrix = numbers.replace_schema_metadata(None).to_pandas(split_blocks=False).to_numpy()
     arrow_buffers = (chunk.to_numpy(zero_copy_only=False) for column in numbers.columns for chunk in column.chunks
                      if len(chunk))
     private = matrix.dtype == np.float64 and matrix.flags.f_contiguous and not any(
         np.may_share_memory(matrix, buffer) for buffer in arrow_buffers)
     if not private:
-        return np.array(matrix, dtype=np.float64, order="F", copy=True)
+        return _copied_column_by_column(numbers)
     try:
         matrix.flags.writeable = True
     except ValueError:
-        return np.array(matrix, dtype=np.float64, order="F", copy=True)
+        return _copied_column_by_column(numbers)
+    return matrix
+
+
+def _copied_column_by_column(numbers) -> np.ndarray:
+    matrix = np.empty((numbers.num_rows, numbers.num_columns), order="F")
+    for j, column in enumerate(numbers.columns):
+        start = 0
+        for chunk in column.chunks:  # chunk by chunk: one copy, straight into the matrix
+            stop = start + len(chunk)
+            matrix[start:stop, j] = chunk.to_numpy(zero_copy_only=False)
+            start = stop
     return matrix
 
 
