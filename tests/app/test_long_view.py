@@ -41,10 +41,11 @@ def long_dataset(tmp_path, services, cluster):
 
 
 def _finished_view(services, state):
-    assert long_view.long_done(services, state) is False  # started now, in the background
+    done, words = long_view.long_poll(services, state)  # started now, in the background
+    assert done is False and "Dask cluster" in words
     key = long_view._Plan(services, state).key
     assert services.compute.long_fits.wait(key, WAIT_SECONDS)["state"] == "done"
-    assert long_view.long_done(services, state) is True
+    assert long_view.long_poll(services, state) == (True, None)  # no progress words once it is done
     return long_view.build_long_view(services, state), key
 
 
@@ -107,7 +108,7 @@ def test_a_visual_change_does_not_refit(services, long_dataset):
     state = ViewState(dataset=record.token)
     _finished_view(services, state)
     moved = state.replace(pc_x=3, pc_y=4, sigma_levels=(1.0, 3.0))
-    assert long_view.long_done(services, moved) is True  # the same fit and scoring: nothing to start
+    assert long_view.long_poll(services, moved) == (True, None)  # the same fit and scoring: nothing to start
     view = long_view.build_long_view(services, moved)
     assert view.complete and (view.pc_x, view.pc_y) == (3, 4)
 
@@ -115,7 +116,7 @@ def test_a_visual_change_does_not_refit(services, long_dataset):
 def test_a_failed_fit_caches_nothing_and_says_why(services, long_dataset):
     record, _ = long_dataset
     state = ViewState(dataset=record.token, missing="iterative")  # refused by the long-data engine
-    assert long_view.long_done(services, state) is False
+    assert long_view.long_poll(services, state)[0] is False
     plan = long_view._Plan(services, state)
     status = services.compute.long_fits.wait(plan.key, WAIT_SECONDS)
     assert status["state"] == "failed" and "Iterative imputation is not available" in status["message"]
@@ -138,3 +139,13 @@ def test_changed_parts_get_a_new_fit_and_a_notice(services, long_dataset, tmp_pa
     after = long_view._Plan(services, state)
     assert after.key != before.key and after.fit_key != before.fit_key
     assert "changed since it was registered" in after.notices[0]
+
+
+def test_progress_words_name_the_step_and_the_partitions():
+    running = {"state": "running", "phase": "moments", "done": 2, "total": 40}
+    assert long_view.progress_text(running) == (
+        "Fitting on the Dask cluster, reading the data (moments): 2 of 40 partitions done. "
+        "The page updates when it is done.")
+    assert "parallel analysis" in long_view.progress_text({"state": "running", "phase": "advice"})
+    assert long_view.progress_text({"state": "done"}) is None
+    assert long_view.progress_text({"state": "failed", "message": "x"}) is None

@@ -27,6 +27,7 @@ from webapp.ui import layout as L
 from webapp.ui import long_view
 from webapp.ui import view_model as vm
 from webapp.ui.picking import register_picking
+from webapp.ui.view_poll import poll_view
 from webapp.ui.components import (
     batch_panel,
     dataset_summary,
@@ -127,14 +128,16 @@ _FIGURE_KEYS = {L.SCORES_GRAPH: "scores", L.VARIANCE_GRAPH: "variance", L.DIAGNO
 
 
 def _register_show_view(app, services) -> None:
-    @app.callback(_FIRST_OUTPUTS + [Output(L.SHOWN_FIRST, "data"), Output(L.PARALLEL_POLL, "disabled")],
+    @app.callback(_FIRST_OUTPUTS + [Output(L.SHOWN_FIRST, "data"), Output(L.PARALLEL_POLL, "disabled"),
+                                    Output(L.FIT_PROGRESS, "children")],
                   Input(L.URL, "search"), Input(L.PARALLEL_DONE, "data"), State(L.SHOWN_FIRST, "data"))
     def show_view(search, _parallel_done, shown):
         outputs, fingerprints, complete = _draw(services, search, first=True)
         always = _ALWAYS_SENT_ON_NEW_ADDRESS if ctx.triggered_id != L.PARALLEL_DONE else frozenset()
         sent, shown = _only_changed(_FIRST_OUTPUTS, outputs, fingerprints, shown, always=always)
         # A new value every time, so the rest of the view always follows.
-        return sent + [{**shown, "#search": search, "#drawn": time.time()}, complete]
+        # The progress line is the poll's alone: a new view (or the finished one) starts without it.
+        return sent + [{**shown, "#search": search, "#drawn": time.time()}, complete, []]
 
     @app.callback(_REST_OUTPUTS + [Output(L.SHOWN_REST, "data")],
                   Input(L.SHOWN_FIRST, "data"), State(L.URL, "search"), State(L.SHOWN_REST, "data"),
@@ -144,26 +147,19 @@ def _register_show_view(app, services) -> None:
         sent, shown = _only_changed(_REST_OUTPUTS, outputs, fingerprints, shown)
         if not complete:
             # The whole view is drawn: now parallel analysis may have the cores.
-            _parallel_analysis_done(services, search)
+            poll_view(services, search)
         return sent + [shown]
 
     @app.callback(Output(L.PARALLEL_DONE, "data"), Output(L.PARALLEL_POLL, "disabled", allow_duplicate=True),
+                  Output(L.FIT_PROGRESS, "children", allow_duplicate=True),
                   Input(L.PARALLEL_POLL, "n_intervals"), State(L.URL, "search"), prevent_initial_call=True)
     def wait_for_parallel_analysis(ticks, search):
-        if _parallel_analysis_done(services, search):
-            return {"search": search, "tick": ticks}, True
-        return no_update, no_update
-
-
-def _parallel_analysis_done(services, search) -> bool:
-    """Whether the view at ``search`` can be drawn complete; starts parallel analysis if not."""
-    state, _ = parse_query(search)
-    shown, _slides, _notices = vm.effective_state(services, state)
-    try:
-        return (long_view.long_done if long_view.is_long(services, shown) else vm.parallel_analysis_done)(services, shown)
-    except Exception:  # the view itself reports problems; stop asking
-        log.exception("Checking parallel analysis for %s failed", search)
-        return True
+        # One reading of the state per tick gives both answers, so the line never outlives the fit.
+        done, progress = poll_view(services, search)
+        line = no_update if progress is None else notice_list((progress,), ())
+        if done:
+            return {"search": search, "tick": ticks}, True, []
+        return no_update, no_update, line
 
 
 def _draw(services, search, *, first: bool) -> tuple[list, list, bool]:

@@ -27,6 +27,7 @@ SHOWN_REST = "shown-rest"
 MANAGE_LINKS = "manage-links"
 MANAGE_BOX = "manage-box"
 NOTICES = "notices"
+FIT_PROGRESS = "fit-progress"  # partitions done while a long-data fit runs (written by the poll)
 DATASET_TITLE = "dataset-title"
 DATASET_SUMMARY = "dataset-summary"
 DATASET_DETAILS = "dataset-details"
@@ -161,6 +162,7 @@ def build_layout(config) -> html.Div:
             _present_bar(),
             html.Div(id=FOLLOW_BANNER, className="follow-banner", role="status", hidden=True),
             html.Div(id=NOTICES, className="notices", role="status", **{"aria-live": "polite"}),
+            html.Div(id=FIT_PROGRESS, className="notices fit-progress", role="status"),
             html.Div(id=NOT_FOUND, className="not-found", hidden=True),
             html.Div(id=WORKSPACE, className="workspace", children=[_recipe_rail(), _cards()]),
         ],

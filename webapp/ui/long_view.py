@@ -45,7 +45,7 @@ from webapp.figures.message import message_figure
 from webapp.state import ViewState, parse_query
 from webapp.store.long_fits import LongFits, long_key
 from webapp.ui import layout as L
-from webapp.ui.components import flagged_table, notice_list
+from webapp.ui.components import flagged_table
 from webapp.ui.view_model import (
     MAX_TABLE_COMPONENTS,
     Controls,
@@ -63,7 +63,7 @@ LONG_DATA_NOTE = ("Long data on the server, read by the Dask engine: the plots s
 SPECTRAL_IGNORED = "Spectral settings (variable ranges, row correction, Savitzky–Golay) are ignored for long data."
 log = logging.getLogger("ordinate")
 
-__all__ = ["build_long_view", "is_long", "long_done", "register_long_view"]
+__all__ = ["build_long_view", "is_long", "long_poll", "register_long_view"]
 
 
 def is_long(services, state: ViewState) -> bool:
@@ -132,14 +132,17 @@ def _confidence(plan: _Plan) -> float:
     return float(plan.key.rsplit("/", 1)[1])
 
 
-def long_done(services, state: ViewState) -> bool:
-    """Whether the view can be drawn complete (fitted, or failed); starts the fit if nobody runs it."""
+def long_poll(services, state: ViewState) -> tuple[bool, str | None]:
+    """Whether the view can be drawn complete (fitted, or failed), starting the fit if nobody runs it;
+    and the progress words while it runs."""
     try:
         plan = _Plan(services, state)
     except OrdinateError:
-        return True  # the view says what is wrong
+        return True, None  # the view says what is wrong
     fits = _fits(services)
-    return fits.start(plan.key, _job(plan, fits)) in ("done", "failed")
+    if fits.start(plan.key, _job(plan, fits)) in ("done", "failed"):
+        return True, None
+    return False, progress_text(fits.status(plan.key)) or "Starting the Dask cluster."
 
 
 def progress_text(status: dict) -> str | None:
@@ -333,23 +336,7 @@ def _provenance(plan: _Plan, fit, result) -> dict:
 
 
 def register_long_view(app, services) -> None:
-    """The progress line while a fit runs, and the pages of the flagged list."""
-
-    @app.callback(Output(L.NOTICES, "children", allow_duplicate=True), Input(L.PARALLEL_POLL, "n_intervals"),
-                  State(L.URL, "search"), prevent_initial_call=True)
-    def show_progress(_ticks, search):
-        state, notices = parse_query(search)
-        shown, _slides, slide_notices = effective_state(services, state)
-        if not is_long(services, shown):
-            raise PreventUpdate
-        try:
-            plan = _Plan(services, shown)
-        except OrdinateError:
-            raise PreventUpdate from None
-        text = progress_text(_fits(services).status(plan.key))
-        if text is None:
-            raise PreventUpdate  # the view's own redraw shows the result
-        return notice_list([*notices, *slide_notices, LONG_DATA_NOTE, *plan.notices, text], ())
+    """The pages of the flagged list (the progress line is the page poll's: ui.callbacks)."""
 
     @app.callback(Output({"type": PAGE_BODY, "index": ALL}, "children"),
                   Input({"type": PAGE_BUTTON, "page": ALL}, "n_clicks"), State(L.URL, "search"),
