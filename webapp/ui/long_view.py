@@ -336,7 +336,7 @@ def _provenance(plan: _Plan, fit, result) -> dict:
 
 
 def register_long_view(app, services) -> None:
-    """The pages of the flagged list (the progress line is the page poll's: ui.callbacks)."""
+    """The pages of the flagged list (the progress line is the page poll's: ui.view_poll, sent by ui.callbacks)."""
 
     @app.callback(Output({"type": PAGE_BODY, "index": ALL}, "children"),
                   Input({"type": PAGE_BUTTON, "page": ALL}, "n_clicks"), State(L.URL, "search"),
