@@ -56,6 +56,7 @@ def test_the_view_waits_then_shows_densities_of_every_row(services, long_dataset
     assert not waiting.complete and not waiting.errors
     view, key = _finished_view(services, state)
     assert view.complete and not view.errors
+    assert view.grouped is False  # long data are not coloured: the page hides "ellipses per group"
 
     fitted = fit_recipe(read_table(whole), Recipe())  # with parallel analysis, as the long fit
     memory = diagnose(fitted, "auto", 0.95)

@@ -499,3 +499,14 @@ def test_the_dashboard_warns_when_iterative_fills_extrapolate(services):
     assert view.errors == ()
     assert any("converged after" in n for n in view.notices)
     assert any("outside the range observed" in n and "'Solar.R'" in n for n in view.notices)
+
+
+def test_the_ellipses_choice_is_shown_only_when_the_samples_are_in_groups(services, iris_token):
+    """With no groups, one set of ellipses over all samples is all there is: no choice to offer."""
+    from webapp.ui import callbacks as cb
+
+    index = [(s.component_id, s.component_property) for s in cb._FIRST_OUTPUTS].index(("ellipse-field", "hidden"))
+    by_species = vm.build_view(services, ViewState(dataset=iris_token), wait=True)  # the group column is found
+    assert by_species.grouped is True and cb._first_outputs(by_species)[index] is False
+    uncoloured = vm.build_view(services, ViewState(dataset=iris_token, colour_by=""), wait=True)
+    assert uncoloured.grouped is False and cb._first_outputs(uncoloured)[index] is True

@@ -55,6 +55,7 @@ PC_X = "pc-x"
 PC_Y = "pc-y"
 SIGMA_LEVELS = "sigma-levels"
 ELLIPSE_BY = "ellipse-by"
+ELLIPSE_FIELD = "ellipse-field"  # hidden when the view has no groups: one ellipse set is all there is
 OVERLAYS = "overlays"
 BIPLOT_SCALING = "biplot-scaling"
 ARROW_LIMIT = "arrow-limit"
@@ -339,7 +340,8 @@ def _scores_card() -> html.Section:
                 _inline("σ levels", dcc.Input(id=SIGMA_LEVELS, type="text", debounce=True, className="sigma-input",
                                               placeholder="e.g. 1, 2, 3")),
                 _inline("ellipses", dcc.RadioItems(id=ELLIPSE_BY, inline=True, options=[
-                    {"label": "per group", "value": "group"}, {"label": "all samples", "value": "all"}])),
+                    {"label": "per group", "value": "group"}, {"label": "all samples", "value": "all"}]),
+                        field_id=ELLIPSE_FIELD),
                 dcc.Checklist(id=OVERLAYS, inline=True, options=[
                     {"label": "loadings arrows", "value": "arrows"},
                     {"label": "T² ellipse", "value": "hotelling"},
@@ -448,8 +450,9 @@ def _field(label: str, control) -> html.Div:
     return html.Div(className="field", children=[html.Label(label, className="field-label"), control])
 
 
-def _inline(label: str, control) -> html.Label:
-    return html.Label(className="inline-field", children=[html.Span(label), control])
+def _inline(label: str, control, field_id: str | None = None) -> html.Label:
+    extra = {"id": field_id} if field_id else {}
+    return html.Label(className="inline-field", children=[html.Span(label), control], **extra)
 
 
 def _radio_field(label: str, control_id: str, choices, words=None) -> html.Fieldset:

@@ -104,6 +104,7 @@ class View:
     advice_text: str = ""
     provenance: dict = field(default_factory=dict)
     complete: bool = True  # False: drawn before parallel analysis finished; ask again
+    grouped: bool = False  # the samples are coloured by groups (so ellipses can be drawn per group)
     dropped_for_gaps: tuple[str, ...] = ()  # samples the missing-value rule left out (not by hand)
     figure_keys: dict = field(default_factory=dict)  # panel name -> what it depends on (see _panel_keys)
     # Panels are built on first use, so a callback that sends some of them builds only those.
@@ -359,6 +360,7 @@ def _full_view(services, state: ViewState, resolved: Resolved, summary: dict, pa
         }),
         provenance=provenance(resolved, diagnostics, colour_column),
         complete=resolved.complete,
+        grouped=groups is not None,
         dropped_for_gaps=tuple(fitted.prepared.dropped_samples),
         figure_keys=keys,
     )
